@@ -1,0 +1,28 @@
+"""The workbench's own exceptions.
+
+Every error a user can cause (bad data, bad options, a bad command line) is a
+:class:`WorkbenchError`; the command line prints its message on one line and
+exits with status 2. Anything else is a bug in the workbench.
+"""
+
+
+class WorkbenchError(Exception):
+    """A problem the user can fix; the message says what was expected and found."""
+
+    exit_code = 2
+
+
+class DataError(WorkbenchError):
+    """The table does not fit the recipe (columns, values, types)."""
+
+
+class OptionError(WorkbenchError):
+    """An option, prior override or recipe name is unknown or out of range."""
+
+
+class ModelFileError(WorkbenchError):
+    """A user's model or recipe file cannot be loaded or used."""
+
+
+class OutputError(WorkbenchError):
+    """An output folder exists and may not be overwritten, or cannot be written."""
