@@ -1,0 +1,155 @@
+"""Compile once, sample, and keep one DataTree.
+
+A :class:`Sampler` compiles a PyMC model with nutpie once; every later run
+only swaps the observed data (``pm.Data`` containers), which is how
+calibration, relaxations and comparisons refit without recompiling.
+:func:`fit` produces the full set of groups the checks read: prior,
+prior_predictive, posterior, sample_stats, log_likelihood, log_prior,
+posterior_predictive and observed_data.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping
+
+import numpy as np
+import xarray as xr
+
+from workbench.errors import WorkbenchError
+
+
+@dataclass(frozen=True)
+class Settings:
+    """How much to sample. The defaults suit a report; tests use fewer draws."""
+
+    draws: int = 1000
+    tune: int = 1000
+    chains: int = 4
+    prior_draws: int = 500
+    cores: int = field(default_factory=lambda: min(4, os.cpu_count() or 1))
+
+
+def seed_stream(seed: int, *names: str) -> dict[str, int]:
+    """Independent integer seeds for named stages, all derived from ``seed``.
+
+    The same ``seed`` and names give the same integers on every machine.
+    """
+    children = np.random.SeedSequence(seed).spawn(len(names))
+    return {name: int(child.generate_state(1, dtype=np.uint32)[0]) for name, child in zip(names, children)}
+
+
+class Sampler:
+    """One compiled model; sample it again and again with new observed data."""
+
+    def __init__(self, model):
+        import nutpie
+
+        self.model = model
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            self.compiled = nutpie.compile_pymc_model(model)
+        self.data_names = set(self.compiled.shared_data)
+
+    def run(
+        self,
+        seed: int,
+        settings: Settings,
+        observed: Mapping[str, np.ndarray] | None = None,
+        progress: bool = False,
+    ) -> xr.DataTree:
+        """Posterior and sample_stats for the given observed containers."""
+        import nutpie
+
+        compiled = self.compiled
+        if observed:
+            unknown = set(observed) - self.data_names
+            if unknown:
+                raise WorkbenchError(f"model has no data container named {sorted(unknown)[0]!r}")
+            compiled = compiled.with_data(**{k: np.asarray(v) for k, v in observed.items()})
+        trace = nutpie.sample(
+            compiled,
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            cores=min(settings.cores, settings.chains),
+            seed=seed,
+            progress_bar=progress,
+            save_warmup=False,
+        )
+        return xr.DataTree.from_dict(
+            {"posterior": trace["posterior"].to_dataset(), "sample_stats": trace["sample_stats"].to_dataset()}
+        )
+
+
+@dataclass
+class Fit:
+    """A fitted design: the DataTree, the model and its compiled sampler."""
+
+    idata: xr.DataTree
+    model: Any
+    sampler: Sampler
+    seconds: float
+    label: str = "model"
+
+    def draws(self, names=None, group: str = "posterior") -> dict[str, np.ndarray]:
+        """Variables of a group flattened over (chain, draw) to a leading axis."""
+        ds = self.idata[group].to_dataset()
+        names = names or list(ds.data_vars)
+        return {n: _flatten(ds[n]) for n in names if n in ds}
+
+
+def _flatten(da: xr.DataArray) -> np.ndarray:
+    values = da.values
+    return values.reshape((-1,) + values.shape[2:])
+
+
+def fit(
+    model,
+    seed: int,
+    settings: Settings = Settings(),
+    sampler: Sampler | None = None,
+    observed: Mapping[str, np.ndarray] | None = None,
+    progress: bool = False,
+    label: str = "model",
+    say: Callable[[str], None] = lambda _: None,
+) -> Fit:
+    """Sample prior, posterior and both predictives of ``model``.
+
+    ``sampler`` reuses a compiled model (``observed`` then swaps the data).
+    """
+    import pymc as pm
+
+    start = time.perf_counter()
+    seeds = seed_stream(seed, "prior", "posterior", "posterior_predictive")
+    if sampler is None:
+        say(f"{label}: compiling")
+        sampler = Sampler(model)
+    model = sampler.model
+    if observed:
+        with model:
+            pm.set_data({k: np.asarray(v) for k, v in observed.items()})
+    say(f"{label}: prior predictive")
+    with model, warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        prior = pm.sample_prior_predictive(
+            draws=settings.prior_draws, random_seed=seeds["prior"]
+        )
+    say(f"{label}: sampling {settings.chains} chains")
+    posterior = sampler.run(seeds["posterior"], settings, observed=observed, progress=progress)
+    groups = {name: prior[name].to_dataset() for name in prior.children}
+    groups.update({name: posterior[name].to_dataset() for name in posterior.children})
+    idata = xr.DataTree.from_dict(groups)
+    say(f"{label}: log-likelihood and posterior predictive")
+    with model, warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pm.compute_log_likelihood(idata, extend_inferencedata=True, progressbar=False)
+        pm.stats.compute_log_prior(idata, extend_inferencedata=True, progressbar=False)
+        pm.sample_posterior_predictive(
+            idata, random_seed=seeds["posterior_predictive"], extend_inferencedata=True,
+            progressbar=False,
+        )
+    return Fit(idata, model, sampler, time.perf_counter() - start, label)

@@ -1,0 +1,296 @@
+"""What a recipe is: plain data (columns, options, parameters, assumptions)
+plus plain functions (validate, simulate, build the PyMC model).
+
+A recipe module defines one module-level ``RECIPE = Recipe(...)``. The harness
+never special-cases a recipe: every recipe answers the same questions through
+the fields below, and :class:`Design` binds a recipe to the options and prior
+overrides of one run.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping
+
+import numpy as np
+
+from workbench.errors import OptionError
+
+REQUIRED = object()  # sentinel: an option without a default must be given
+
+
+@dataclass(frozen=True)
+class Column:
+    """A column of the input table."""
+
+    name: str
+    meaning: str
+    required: bool = True
+
+
+@dataclass(frozen=True)
+class Option:
+    """A design option set with ``--set NAME=VALUE``.
+
+    ``parse`` turns the command-line text into a value and raises
+    ``ValueError`` with a short reason when it cannot.
+    """
+
+    name: str
+    meaning: str
+    parse: Callable[[str], Any] = str
+    default: Any = REQUIRED
+    choices: tuple = ()
+
+    def read(self, text: Any) -> Any:
+        """Parse and check one value; raise :class:`OptionError` naming the option."""
+        if isinstance(text, str):
+            try:
+                value = self.parse(text)
+            except (TypeError, ValueError) as err:
+                raise OptionError(
+                    f"option '{self.name}': expected {self.meaning}; found {text!r} ({err})"
+                ) from None
+        else:
+            value = text
+        if self.choices and value not in self.choices:
+            raise OptionError(
+                f"option '{self.name}': expected one of {', '.join(map(str, self.choices))}; "
+                f"found {text!r}"
+            )
+        return value
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """A model parameter with its default prior (``DIST(ARGS)`` syntax)."""
+
+    name: str
+    meaning: str
+    prior: str
+
+
+@dataclass(frozen=True)
+class Statistic:
+    """A targeted predictive statistic (a discrepancy in the sense of
+    Gelman, Meng and Stern 1996): a number that moves when its assumption fails.
+
+    ``compute(data, outcomes, draws)`` is vectorised over S posterior draws:
+    ``outcomes`` maps each observed name to an array with a leading axis of
+    length S (the observed data broadcast, or replicated data), ``draws`` maps
+    each posterior variable to its S draws. It returns an array of length S.
+
+    ``sides`` says which departures count: ``"two"``, ``"greater"`` (the
+    observed value is larger than replicated ones when the assumption fails)
+    or ``"less"``.
+    """
+
+    name: str
+    meaning: str
+    compute: Callable[..., np.ndarray]
+    sides: str = "two"
+
+
+@dataclass(frozen=True)
+class Relaxation:
+    """A nested expansion of the model with one extra parameter.
+
+    ``build(data, options, prior)`` returns the expanded PyMC model; its extra
+    parameter is ``parameter`` (declared with its prior among the recipe's
+    parameters) and ``null`` is the value that restores the assumption. ``negligible`` is the distance from the null below which the
+    expansion makes no practical difference; the verdict asks how much
+    posterior mass lies beyond it.
+    """
+
+    parameter: str
+    meaning: str
+    build: Callable[..., Any]
+    null: float
+    negligible: float
+
+
+@dataclass(frozen=True)
+class Assumption:
+    """One assumption of the generative story, with the checks that test it."""
+
+    key: str
+    statement: str
+    statistic: Statistic | None = None
+    relaxation: Relaxation | None = None
+    advice: str = ""
+
+
+@dataclass(frozen=True)
+class Recipe:
+    """A generative process template.
+
+    validate(table, options) -> Dataset
+        Check the table once, at the boundary; raise ``DataError``.
+    simulate(rng, data, params, options) -> Dataset
+        Independent NumPy simulator: new outcomes for the same design.
+    build_model(data, options, prior) -> pymc.Model
+        The PyMC model of the same story. Outcomes enter through ``pm.Data``
+        containers named as in ``observed`` so that one compiled model serves
+        every refit; ``prior(name, **kwargs)`` creates a parameter with its
+        (possibly overridden) prior.
+    observed(data) -> {container name: array}
+        The values of the outcome containers for a dataset.
+    outcome_names
+        The observed random variables of the model (their posterior predictive
+        draws feed the statistics).
+    covariate
+        The column the report plots against (distance, age, ...).
+    figure(data, fit_draws) -> matplotlib Figure, optional
+        The recipe's own picture of fitted versus observed.
+    people_decisions
+        True when the recipe is typically used for decisions about people
+        (the report then carries the caution).
+    """
+
+    name: str
+    summary: str
+    columns: tuple[Column, ...]
+    options: tuple[Option, ...]
+    parameters: tuple[Parameter, ...]
+    assumptions: tuple[Assumption, ...]
+    validate: Callable[..., Any]
+    simulate: Callable[..., Any]
+    build_model: Callable[..., Any]
+    observed: Callable[..., Mapping[str, np.ndarray]]
+    outcome_names: tuple[str, ...]
+    covariate: str
+    figure: Callable[..., Any] | None = None
+    people_decisions: bool = False
+    source: str = ""
+
+    def read_options(self, given: Mapping[str, Any]) -> dict[str, Any]:
+        """Parse ``--set`` values against the declared options, filling defaults."""
+        known = {o.name: o for o in self.options}
+        unknown = sorted(set(given) - set(known))
+        if unknown:
+            raise OptionError(
+                f"recipe '{self.name}' has no option '{unknown[0]}'; "
+                f"expected one of: {', '.join(known) or '(none)'}"
+            )
+        values = {}
+        for name, option in known.items():
+            if name in given:
+                values[name] = option.read(given[name])
+            elif option.default is REQUIRED:
+                raise OptionError(
+                    f"recipe '{self.name}' needs option '{name}' ({option.meaning}); "
+                    f"found none: add --set {name}=VALUE"
+                )
+            else:
+                values[name] = option.default
+        return values
+
+
+@dataclass
+class Dataset:
+    """A validated table: plain arrays, trusted by everything downstream.
+
+    ``columns`` holds one NumPy array per column (labels as integer codes),
+    ``labels`` the original text of each label column, in code order.
+    ``source_rows`` maps each dataset row to the input table's row numbers
+    (several when identical rows were summed).
+    """
+
+    columns: dict[str, np.ndarray]
+    labels: dict[str, list[str]] = field(default_factory=dict)
+    source_rows: list[list[int]] = field(default_factory=list)
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def rows(self) -> int:
+        return len(next(iter(self.columns.values()))) if self.columns else 0
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self.columns[name]
+
+    def replace(self, **columns: np.ndarray) -> "Dataset":
+        """A copy with some columns replaced (simulated outcomes)."""
+        new = dict(self.columns)
+        new.update(columns)
+        return Dataset(new, self.labels, self.source_rows, self.extra)
+
+    def to_frame(self):
+        """The dataset as a pandas DataFrame with label columns as text."""
+        import pandas as pd
+
+        frame = pd.DataFrame(self.columns)
+        for name, labels in self.labels.items():
+            frame[name] = [labels[i] for i in self.columns[name]]
+        return frame
+
+
+@dataclass
+class Design:
+    """A recipe bound to the options and prior overrides of one run."""
+
+    recipe: Recipe
+    options: dict[str, Any]
+    priors: dict[str, str]
+
+    @property
+    def name(self) -> str:
+        return self.recipe.name
+
+    @property
+    def assumptions(self) -> tuple[Assumption, ...]:
+        return self.recipe.assumptions
+
+    @property
+    def outcome_names(self) -> tuple[str, ...]:
+        return self.recipe.outcome_names
+
+    def prior_text(self, name: str) -> str:
+        """The prior in force for a parameter: the override or the recipe's default."""
+        if name in self.priors:
+            return self.priors[name]
+        for parameter in self.recipe.parameters:
+            if parameter.name == name:
+                return parameter.prior
+        raise OptionError(f"recipe '{self.recipe.name}' declares no parameter '{name}'")
+
+    def prior(self, name: str, **kwargs):
+        """Create parameter ``name`` with its prior inside the current PyMC model."""
+        from workbench.priors import parse_prior
+
+        return parse_prior(self.prior_text(name), where=f"prior of {name}").create(name, **kwargs)
+
+    def build(self, data: Dataset, relaxation: Relaxation | None = None):
+        """The PyMC model for ``data``, expanded by ``relaxation`` when given."""
+        builder = relaxation.build if relaxation else self.recipe.build_model
+        return builder(data, self.options, self.prior)
+
+    def observed(self, data: Dataset) -> Mapping[str, np.ndarray]:
+        return self.recipe.observed(data)
+
+    def simulate(self, rng: np.random.Generator, data: Dataset, params: dict) -> Dataset:
+        return self.recipe.simulate(rng, data, params, self.options)
+
+    def label(self) -> str:
+        """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
+        parts = [self.recipe.name]
+        parts += [f"{k}={v}" for k, v in sorted(self.options.items())]
+        parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
+        return ":".join(parts)
+
+
+def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str, str]) -> Design:
+    """Bind a recipe to parsed options and checked prior overrides."""
+    from workbench.priors import parse_prior
+
+    values = recipe.read_options(options)
+    known = {p.name for p in recipe.parameters}
+    checked = {}
+    for name, text in priors.items():
+        if name not in known:
+            from difflib import get_close_matches
+
+            close = get_close_matches(name, known, n=1)
+            hint = f"; did you mean '{close[0]}'?" if close else f" (parameters: {', '.join(sorted(known))})"
+            raise OptionError(f"--prior: recipe '{recipe.name}' has no parameter '{name}'{hint}")
+        checked[name] = str(parse_prior(str(text), where=f"--prior {name}"))
+    return Design(recipe, values, checked)
