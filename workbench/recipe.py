@@ -121,6 +121,17 @@ class Assumption:
 
 
 @dataclass(frozen=True)
+class DemoScenario:
+    """An invented scenario: a table simulated from documented true values."""
+
+    title: str
+    story: str
+    table: Any  # pandas DataFrame as a user would have it
+    options: dict[str, str]
+    truth: dict[str, Any]
+
+
+@dataclass(frozen=True)
 class Recipe:
     """A generative process template.
 
@@ -140,8 +151,15 @@ class Recipe:
         draws feed the statistics).
     covariate
         The column the report plots against (distance, age, ...).
-    figure(data, fit_draws) -> matplotlib Figure, optional
-        The recipe's own picture of fitted versus observed.
+    figure(data, options, posterior, predictive) -> matplotlib Figure, optional
+        The recipe's own picture of fitted versus observed; ``posterior`` and
+        ``predictive`` map variable names to draws flattened over
+        (chain, draw) into a leading axis.
+    derived(data, options, posterior) -> {name: array of S draws}, optional
+        Quantities the report summarises with their uncertainty (shares at
+        maturity, long-run absorption shares, ...).
+    demo(rng) -> DemoScenario, optional
+        An invented scenario for ``workbench demo``.
     people_decisions
         True when the recipe is typically used for decisions about people
         (the report then carries the caution).
@@ -160,6 +178,8 @@ class Recipe:
     outcome_names: tuple[str, ...]
     covariate: str
     figure: Callable[..., Any] | None = None
+    derived: Callable[..., Any] | None = None
+    demo: Callable[..., "DemoScenario"] | None = None
     people_decisions: bool = False
     source: str = ""
 

@@ -1,0 +1,131 @@
+"""Findings -> one verdict per assumption.
+
+This is the only place that turns numbers into judgements. Each finding kind
+has a *rule* (registered with :func:`rule` in a module of
+:mod:`workbench.rules`) that reads the finding's numbers against named
+thresholds and returns a :class:`Judgement`: a level (0 holds, 1 doubtful,
+2 broken), one sentence for the report and, when it argues for a problem, the
+advice. An assumption's verdict is the worst level among its judgements;
+``unchecked`` when it has none.
+"""
+
+from __future__ import annotations
+
+import importlib
+import pkgutil
+from dataclasses import dataclass, field
+from typing import Callable
+
+from workbench.findings import GENERIC_ASSUMPTIONS, IMPLEMENTATION, Finding
+
+HOLDS, DOUBTFUL, BROKEN, UNCHECKED = "holds", "doubtful", "broken", "unchecked"
+LEVELS = {0: HOLDS, 1: DOUBTFUL, 2: BROKEN}
+# Report order: the most urgent first.
+ORDER = {BROKEN: 0, DOUBTFUL: 1, UNCHECKED: 2, HOLDS: 3}
+
+
+@dataclass
+class Judgement:
+    level: int
+    sentence: str
+    advice: str = ""
+    # How strongly this evidence points at its assumption (used to rank the
+    # diagnosis when several assumptions look broken); larger is stronger.
+    strength: float = 0.0
+
+
+@dataclass
+class Verdict:
+    key: str
+    statement: str
+    verdict: str
+    evidence: list[tuple[Finding, Judgement]] = field(default_factory=list)
+    advice: str = ""
+    strength: float = 0.0
+
+    def to_dict(self) -> dict:
+        return {
+            "key": self.key,
+            "statement": self.statement,
+            "verdict": self.verdict,
+            "evidence": [
+                {
+                    "check": f.check,
+                    "value": _num(f.value),
+                    "p_value": _num(f.p_value),
+                    "detail": f"{f.detail} {j.sentence}".strip(),
+                }
+                for f, j in self.evidence
+            ],
+            "advice": self.advice,
+        }
+
+
+def _num(x):
+    if x is None:
+        return None
+    x = float(x)
+    return x if x == x and abs(x) != float("inf") else None
+
+
+_RULES: dict[str, Callable[[Finding], Judgement]] = {}
+
+
+def rule(kind: str):
+    """Register the rule that judges findings of ``kind``."""
+
+    def register(fn):
+        _RULES[kind] = fn
+        return fn
+
+    return register
+
+
+def _load_rules() -> None:
+    import workbench.rules as package
+
+    for info in pkgutil.iter_modules(package.__path__):
+        importlib.import_module(f"{package.__name__}.{info.name}")
+
+
+def judge(finding: Finding) -> Judgement:
+    if not _RULES:
+        _load_rules()
+    try:
+        fn = _RULES[finding.kind]
+    except KeyError:
+        raise KeyError(f"no verdict rule for finding kind {finding.kind!r}") from None
+    return fn(finding)
+
+
+def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> list[Verdict]:
+    """One verdict per assumption, most urgent first.
+
+    ``assumptions`` lists (key, statement, default advice) of the recipe; the
+    generic ``priors``, ``computation`` and ``implementation`` are added.
+    """
+    declared = [(k, s, "") for k, s in GENERIC_ASSUMPTIONS.items()] + list(assumptions)
+    verdicts = []
+    for key, statement, default_advice in declared:
+        own = [f for f in findings if f.assumption == key]
+        judged = [(f, judge(f)) for f in own]
+        if not judged:
+            verdict = Verdict(key, statement, UNCHECKED)
+            if key == IMPLEMENTATION:
+                verdict.advice = "Run simulation-based calibration (--sbc N) to check the model code."
+            verdicts.append(verdict)
+            continue
+        worst = max(j.level for _, j in judged)
+        advice = [j.advice for _, j in judged if j.level == worst and j.level > 0 and j.advice]
+        if worst > 0 and default_advice:
+            advice.append(default_advice)
+        strength = sum(j.strength for _, j in judged if j.level == worst) if worst else 0.0
+        verdicts.append(
+            Verdict(key, statement, LEVELS[worst], judged, " ".join(dict.fromkeys(advice)), strength)
+        )
+    return rank(verdicts)
+
+
+def rank(verdicts: list[Verdict]) -> list[Verdict]:
+    """Most urgent first; among equals, the strongest evidence first."""
+    return sorted(verdicts, key=lambda v: (ORDER[v.verdict], -v.strength))
