@@ -107,6 +107,18 @@ def _flatten(da: xr.DataArray) -> np.ndarray:
     return values.reshape((-1,) + values.shape[2:])
 
 
+def _observed_data(model) -> xr.Dataset:
+    """The observed values of every observed variable, with the model's dims."""
+    out = {}
+    for rv in model.observed_RVs:
+        value = model.rvs_to_values[rv]
+        data = value.get_value() if hasattr(value, "get_value") else value.data
+        dims = model.named_vars_to_dims.get(rv.name)
+        dims = tuple(dims) if dims else tuple(f"{rv.name}_dim_{i}" for i in range(np.ndim(data)))
+        out[rv.name] = xr.DataArray(np.asarray(data), dims=dims)
+    return xr.Dataset(out)
+
+
 def fit(
     model,
     seed: int,
@@ -116,10 +128,13 @@ def fit(
     progress: bool = False,
     label: str = "model",
     say: Callable[[str], None] = lambda _: None,
+    predictive: bool = True,
 ) -> Fit:
     """Sample prior, posterior and both predictives of ``model``.
 
     ``sampler`` reuses a compiled model (``observed`` then swaps the data).
+    ``predictive=False`` keeps only what model comparison needs (posterior,
+    sample_stats, log_likelihood, observed_data).
     """
     import pymc as pm
 
@@ -132,24 +147,27 @@ def fit(
     if observed:
         with model:
             pm.set_data({k: np.asarray(v) for k, v in observed.items()})
-    say(f"{label}: prior predictive")
-    with model, warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        prior = pm.sample_prior_predictive(
-            draws=settings.prior_draws, random_seed=seeds["prior"]
-        )
+    groups = {}
+    if predictive:
+        say(f"{label}: prior predictive")
+        with model, warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            prior = pm.sample_prior_predictive(draws=settings.prior_draws, random_seed=seeds["prior"])
+        groups.update({name: prior[name].to_dataset() for name in prior.children})
+    else:
+        groups["observed_data"] = _observed_data(model)
     say(f"{label}: sampling {settings.chains} chains")
     posterior = sampler.run(seeds["posterior"], settings, observed=observed, progress=progress)
-    groups = {name: prior[name].to_dataset() for name in prior.children}
     groups.update({name: posterior[name].to_dataset() for name in posterior.children})
     idata = xr.DataTree.from_dict(groups)
-    say(f"{label}: log-likelihood and posterior predictive")
+    say(f"{label}: log-likelihood" + (" and posterior predictive" if predictive else ""))
     with model, warnings.catch_warnings():
         warnings.simplefilter("ignore")
         pm.compute_log_likelihood(idata, extend_inferencedata=True, progressbar=False)
-        pm.stats.compute_log_prior(idata, extend_inferencedata=True, progressbar=False)
-        pm.sample_posterior_predictive(
-            idata, random_seed=seeds["posterior_predictive"], extend_inferencedata=True,
-            progressbar=False,
-        )
+        if predictive:
+            pm.stats.compute_log_prior(idata, extend_inferencedata=True, progressbar=False)
+            pm.sample_posterior_predictive(
+                idata, random_seed=seeds["posterior_predictive"], extend_inferencedata=True,
+                progressbar=False,
+            )
     return Fit(idata, model, sampler, time.perf_counter() - start, label)

@@ -290,12 +290,23 @@ class Design:
     def simulate(self, rng: np.random.Generator, data: Dataset, params: dict) -> Dataset:
         return self.recipe.simulate(rng, data, params, self.options)
 
+    def __reduce__(self):
+        # Recipes hold functions of modules loaded by path; a worker process
+        # rebuilds the design by loading the same file.
+        return (_design_from_source, (self.recipe.source, self.recipe.name, self.options, self.priors))
+
     def label(self) -> str:
         """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
         parts = [self.recipe.name]
         parts += [f"{k}={v}" for k, v in sorted(self.options.items())]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
+
+
+def _design_from_source(source: str, name: str, options: dict, priors: dict) -> "Design":
+    from workbench.registry import recipe_from_file
+
+    return Design(recipe_from_file(source, name), options, priors)
 
 
 def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str, str]) -> Design:

@@ -10,6 +10,7 @@ load.
 
 from __future__ import annotations
 
+import hashlib
 import importlib.util
 import os
 import sys
@@ -102,9 +103,25 @@ def _load_folder(folder: Path, registry: Registry) -> None:
         registry.recipes[recipe.name] = replace(recipe, source=str(path))
 
 
+_MODULES: dict[str, object] = {}
+
+
+def recipe_from_file(source: str, name: str) -> Recipe:
+    """The recipe ``name`` defined in file ``source`` (loaded once per process)."""
+    module = load_module(Path(source))
+    recipe = getattr(module, "RECIPE", None)
+    if not isinstance(recipe, Recipe) or recipe.name != name:
+        raise OptionError(f"{source}: expected RECIPE named '{name}'")
+    return replace(recipe, source=str(source))
+
+
 def load_module(path: Path):
-    """Import a Python file by path under a private module name."""
-    name = f"_workbench_user_{abs(hash(str(path.resolve())))}_{path.stem}"
+    """Import a Python file by path under a private module name (once per process)."""
+    key = str(path.resolve())
+    if key in _MODULES:
+        return _MODULES[key]
+    digest = hashlib.sha1(key.encode()).hexdigest()[:12]
+    name = f"_workbench_user_{digest}_{path.stem}"
     spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
@@ -113,6 +130,7 @@ def load_module(path: Path):
     except BaseException:
         sys.modules.pop(name, None)
         raise
+    _MODULES[key] = module
     return module
 
 

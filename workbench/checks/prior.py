@@ -1,0 +1,121 @@
+"""Checks of the ``priors`` assumption: are the priors compatible with the data?
+
+Two pieces of evidence:
+
+* prior predictive coverage: where each observed summary statistic falls in
+  its prior predictive distribution (a value in the far tail means the priors
+  put almost no mass on data like these);
+* power-scaling sensitivity of each free parameter to the prior and to the
+  likelihood (ArviZ ``psense``); sensitivity to both at once is the signature of
+  prior-data conflict.
+
+References
+----------
+Box, G. E. P. (1980). Sampling and Bayes' inference in scientific modelling
+and robustness. JRSS A 143(4), 383-430 (prior predictive checking).
+Kallioinen, N., Paananen, T., Bürkner, P.-C. and Vehtari, A. (2024).
+Detecting and diagnosing prior and likelihood sensitivity with power-scaling.
+Statistics and Computing 34, 57.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from workbench.checks import Context, check
+from workbench.findings import PRIORS, Finding
+
+
+def free_parameters(fit) -> list[str]:
+    """Names of the model's free random variables present in the posterior."""
+    names = [rv.name for rv in fit.model.free_RVs]
+    return [n for n in names if n in fit.idata["posterior"].data_vars]
+
+
+def _summaries(values: np.ndarray) -> dict[str, np.ndarray]:
+    """Summary statistics over the last axis (the rows of the table)."""
+    flat = values.reshape(values.shape[0], -1).astype(float)
+    return {"mean": flat.mean(axis=1), "sd": flat.std(axis=1)}
+
+
+@check
+def prior_predictive_coverage(context: Context) -> list[Finding]:
+    """Tail probability of each observed summary under the prior predictive."""
+    fit = context.fit
+    if "prior_predictive" not in fit.idata.children:
+        return []
+    prior_pred = fit.draws(group="prior_predictive")
+    observed = fit.idata["observed_data"].to_dataset()
+    findings = []
+    for name in observed.data_vars:
+        if name not in prior_pred:
+            continue
+        sims = _summaries(prior_pred[name])
+        obs = _summaries(observed[name].values[None, ...])
+        for stat, simulated in sims.items():
+            o = float(obs[stat][0])
+            below = float(np.mean(simulated < o) + 0.5 * np.mean(simulated == o))
+            tail = min(below, 1.0 - below)
+            lo, hi = np.percentile(simulated, [1, 99])
+            findings.append(
+                Finding(
+                    assumption=PRIORS,
+                    kind="prior_coverage",
+                    check=f"prior_coverage:{name}:{stat}",
+                    value=o,
+                    p_value=2.0 * tail,
+                    detail=(
+                        f"Observed {stat} of {name} is {o:.4g}; the prior predictive puts 98% "
+                        f"of its mass between {lo:.4g} and {hi:.4g} ({below:.1%} below the observed)."
+                    ),
+                    numbers={"share_below": below, "low": float(lo), "high": float(hi)},
+                    figure="prior-predictive",
+                )
+            )
+    return findings
+
+
+@check
+def prior_sensitivity(context: Context) -> list[Finding]:
+    """Power-scaling sensitivity of each free parameter to prior and likelihood."""
+    import arviz as az
+
+    fit = context.fit
+    groups = set(fit.idata.children)
+    if not {"log_prior", "log_likelihood"} <= groups:
+        return []
+    names = free_parameters(fit)
+    if not names:
+        return []
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            prior = az.psense(fit.idata, var_names=names, group="prior")
+            likelihood = az.psense(fit.idata, var_names=names, group="likelihood")
+    except Exception as err:  # psense can fail on degenerate draws; record, don't abort
+        return [
+            Finding(PRIORS, "prior_sensitivity_failed", "prior_sensitivity", None,
+                    detail=f"Power-scaling sensitivity could not be computed ({type(err).__name__}: {err}).")
+        ]
+    findings = []
+    for name in names:
+        ps = np.atleast_1d(np.asarray(prior[name].values, dtype=float))
+        ls = np.atleast_1d(np.asarray(likelihood[name].values, dtype=float))
+        i = int(np.nanargmax(ps)) if np.isfinite(ps).any() else 0
+        label = name if ps.size == 1 else f"{name}[{i}]"
+        findings.append(
+            Finding(
+                assumption=PRIORS,
+                kind="prior_sensitivity",
+                check=f"prior_sensitivity:{label}",
+                value=float(ps[i]),
+                detail=(
+                    f"Power-scaling sensitivity of {label}: to the prior {ps[i]:.3f}, "
+                    f"to the likelihood {ls[i]:.3f}."
+                ),
+                numbers={"parameter": label, "prior": float(ps[i]), "likelihood": float(ls[i])},
+            )
+        )
+    return findings

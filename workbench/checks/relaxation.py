@@ -1,0 +1,72 @@
+"""Relaxation checks: continuous model expansion, one parameter at a time.
+
+Each relaxable assumption has a nested expansion whose extra parameter equals
+``null`` when the assumption holds. The check reports how much posterior mass
+of that parameter lies beyond ``negligible`` of the null and the PSIS-LOO
+difference between expanded and original model with its standard error.
+
+References
+----------
+Gelman, A., Vehtari, A., Simpson, D. et al. (2020). Bayesian workflow.
+arXiv:2011.01808, section 6.3 (continuous model expansion).
+Vehtari, A., Gelman, A. and Gabry, J. (2017). Practical Bayesian model
+evaluation using leave-one-out cross-validation and WAIC. Statistics and
+Computing 27, 1413-1432 (elpd differences and their standard errors).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from workbench.checks import Context, check
+from workbench.checks.loo import loo_of
+from workbench.findings import Finding
+
+
+def elpd_difference(expanded, original) -> tuple[float, float]:
+    """elpd(expanded) - elpd(original) and its standard error (paired rows)."""
+    a, b = loo_of(expanded), loo_of(original)
+    diff = np.asarray(a.elpd_i).ravel() - np.asarray(b.elpd_i).ravel()
+    return float(diff.sum()), float(np.sqrt(diff.size * np.var(diff)))
+
+
+def relaxation_finding(assumption, relaxation, expanded, original) -> Finding:
+    draws = expanded.draws([relaxation.parameter])[relaxation.parameter].ravel()
+    beyond = float(np.mean(np.abs(draws - relaxation.null) > relaxation.negligible))
+    lo, mid, hi = np.percentile(draws, [5, 50, 95])
+    diff, se = elpd_difference(expanded, original)
+    return Finding(
+        assumption=assumption.key,
+        kind="relaxation",
+        check=f"relaxation:{relaxation.parameter}",
+        value=float(mid),
+        detail=(
+            f"Expanded model ({relaxation.meaning}): {relaxation.parameter} median {mid:.3g}, "
+            f"90% interval {lo:.3g} to {hi:.3g} (null {relaxation.null:g}); "
+            f"{beyond:.0%} of draws lie beyond ±{relaxation.negligible:g} of the null; "
+            f"elpd difference {diff:+.1f} (SE {se:.1f})."
+        ),
+        numbers={
+            "parameter": relaxation.parameter,
+            "null": relaxation.null,
+            "negligible": relaxation.negligible,
+            "share_beyond": beyond,
+            "interval": [float(lo), float(hi)],
+            "elpd_diff": diff,
+            "elpd_se": se,
+        },
+        figure=f"relaxation-{assumption.key}",
+    )
+
+
+@check
+def relaxations(context: Context) -> list[Finding]:
+    findings = []
+    for assumption in context.design.assumptions:
+        relaxation = assumption.relaxation
+        if relaxation is None or relaxation.parameter not in context.relaxed:
+            continue
+        findings.append(
+            relaxation_finding(assumption, relaxation, context.relaxed[relaxation.parameter], context.fit)
+        )
+    return findings

@@ -1,0 +1,135 @@
+"""One check run, start to end: fit, relax, check, judge.
+
+Data flow is one way: dataset -> design -> fits -> findings -> verdicts. The
+result object holds everything the writers need; writers compute nothing.
+"""
+
+from __future__ import annotations
+
+import os
+import platform
+import sys
+import time
+import warnings
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from importlib import metadata
+from multiprocessing import get_context
+from typing import Any, Callable
+
+from workbench import checks, engine, verdicts
+from workbench.findings import Finding
+
+# Versions recorded in every manifest: the interpreter and each scientific
+# dependency whose numbers could change a result.
+VERSIONED = ("workbench", "pymc", "pytensor", "arviz", "arviz-base", "arviz-stats", "nutpie",
+             "numpy", "scipy", "pandas", "xarray", "matplotlib")
+
+
+def versions() -> dict[str, str]:
+    found = {"python": platform.python_version()}
+    for name in VERSIONED:
+        try:
+            found[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            pass
+    return found
+
+
+@dataclass
+class DataInfo:
+    path: str
+    sha256: str
+    rows: int
+
+
+@dataclass
+class CheckRun:
+    """Everything one check produced."""
+
+    design: Any
+    data: Any
+    data_info: DataInfo
+    seed: int
+    settings: engine.Settings
+    fit: engine.Fit
+    relaxed: dict[str, engine.Fit]
+    findings: list[Finding]
+    verdicts: list[verdicts.Verdict]
+    extras: dict[str, Any]
+    calibration: Any = None
+    started: str = ""
+    seconds: float = 0.0
+    versions: dict[str, str] = field(default_factory=versions)
+
+
+def _fit_relaxed(design, data, parameter: str, seed: int, settings: engine.Settings):
+    """Fit one relaxed model (runs in a worker process); returns its DataTree."""
+    warnings.simplefilter("ignore")
+    relaxation = next(a.relaxation for a in design.assumptions
+                      if a.relaxation and a.relaxation.parameter == parameter)
+    model = design.build(data, relaxation)
+    result = engine.fit(model, seed, settings, predictive=False)
+    return result.idata, result.seconds
+
+
+def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
+                    say: Callable[[str], None]) -> dict[str, engine.Fit]:
+    """Fit every declared relaxation, in parallel worker processes.
+
+    Each expanded model is compiled once in its worker. Seeds derive from the
+    run seed and the parameter name, so results do not depend on scheduling.
+    """
+    relaxations = [a.relaxation for a in design.assumptions if a.relaxation is not None]
+    if not relaxations:
+        return {}
+    names = [r.parameter for r in relaxations]
+    seeds = engine.seed_stream(seed, *[f"relax:{n}" for n in names])
+    workers = max(1, min(len(names), workers or os.cpu_count() or 1))
+    say(f"fitting {len(names)} relaxed model(s) on {workers} process(es)")
+    # Threads would share one interpreter lock and PyTensor's compile lock;
+    # separate processes compile in parallel. "spawn" avoids forking a process
+    # that already runs sampler threads.
+    with ProcessPoolExecutor(workers, mp_context=get_context("spawn")) as pool:
+        futures = {n: pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings)
+                   for n in names}
+        out = {}
+        for n, future in futures.items():
+            idata, seconds = future.result()
+            out[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
+            say(f"relaxed model '{n}' done in {seconds:.0f} s")
+    return out
+
+
+def run_check(
+    design,
+    data,
+    data_info: DataInfo,
+    seed: int = 1,
+    settings: engine.Settings = engine.Settings(),
+    relax: bool = True,
+    workers: int | None = None,
+    calibrate: Callable[[], Any] | None = None,
+    say: Callable[[str], None] = lambda _: None,
+    progress: bool = False,
+) -> CheckRun:
+    """Fit the design, its relaxations and calibration; judge every assumption."""
+    start = time.perf_counter()
+    started = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    seeds = engine.seed_stream(seed, "main", "relaxations")
+    main = engine.fit(design.build(data), seeds["main"], settings, progress=progress,
+                      label=design.name, say=say)
+    relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say) if relax else {}
+    calibration = calibrate() if calibrate else None
+    context = checks.Context(design, data, main, relaxed, calibration)
+    say("running checks")
+    findings = checks.run_all(context)
+    declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
+    judged = verdicts.decide(declared, findings)
+    return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
+                    context.extras, calibration, started, time.perf_counter() - start)
+
+
+def command_line() -> str:
+    return " ".join(os.path.basename(a) if i == 0 else a for i, a in enumerate(sys.argv))

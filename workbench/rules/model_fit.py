@@ -1,0 +1,58 @@
+"""Rules for a recipe assumption's own evidence: its targeted predictive
+statistic (``ppc``) and its relaxation fit (``relaxation``)."""
+
+from __future__ import annotations
+
+import math
+
+from workbench.findings import Finding
+from workbench.verdicts import Judgement, rule
+
+# Posterior predictive p-values are conservative (concentrated near 0.5 when
+# the model holds; Gelman et al. 2013, BDA3 sec. 6.3), so these cut-offs are
+# stricter than a frequentist test's: several assumptions are checked per run
+# and the rate of false "broken" verdicts over all of them must stay low.
+PPC_BROKEN_P = 0.002
+PPC_DOUBTFUL_P = 0.02
+
+# A relaxation argues that an assumption fails when most posterior mass of the
+# expansion parameter sits beyond its negligible distance from the null ...
+SHARE_BEYOND_BROKEN = 0.95
+SHARE_BEYOND_DOUBTFUL = 0.8
+# ... and the expanded model predicts held-out rows better by more than twice
+# the standard error of the difference (Vehtari et al. 2017 read differences
+# below about 2 SE as noise); a floor of 2 elpd units keeps tiny SEs honest.
+ELPD_SE_MULTIPLE = 2.0
+ELPD_FLOOR = 2.0
+
+
+@rule("ppc")
+def targeted_statistic(f: Finding) -> Judgement:
+    p = f.p_value
+    if p is None or math.isnan(p):
+        return Judgement(0, "The statistic could not be computed on these draws.")
+    strength = -math.log10(max(p, 1e-6))
+    if p < PPC_BROKEN_P:
+        return Judgement(2, f"Replicated data almost never look like this (p = {p:.3g}).",
+                         strength=strength)
+    if p < PPC_DOUBTFUL_P:
+        return Judgement(1, f"Replicated data rarely look like this (p = {p:.3g}).",
+                         strength=strength)
+    return Judgement(0, f"Typical of data replicated from the fit (p = {p:.2f}).")
+
+
+@rule("relaxation")
+def expansion(f: Finding) -> Judgement:
+    n = f.numbers
+    share, diff, se = n["share_beyond"], n["elpd_diff"], n["elpd_se"]
+    better = diff > max(ELPD_SE_MULTIPLE * se, ELPD_FLOOR)
+    strength = max(diff, 0.0) / max(se, 1.0)
+    name = n["parameter"]
+    if share >= SHARE_BEYOND_BROKEN and better:
+        return Judgement(
+            2, f"The data pull {name} away from its null and the expanded model predicts "
+               f"held-out rows clearly better.", strength=strength + 3.0)
+    if share >= SHARE_BEYOND_DOUBTFUL and (better or diff > se):
+        return Judgement(1, f"The data lean towards a non-null {name}; the gain in prediction "
+                            f"is modest.", strength=strength)
+    return Judgement(0, f"The expanded model does not need {name} away from its null.")

@@ -1,0 +1,57 @@
+"""Rules for the ``priors`` assumption."""
+
+from __future__ import annotations
+
+from workbench.findings import Finding
+from workbench.verdicts import Judgement, rule
+
+# An observed summary outside the central 99.8% of its prior predictive
+# distribution means the priors give data like these almost no mass; outside
+# the central 98% is worth a second look (common practice for prior
+# predictive checks; Gabry et al. 2019, Visualization in Bayesian workflow).
+COVERAGE_BROKEN_P = 0.002
+COVERAGE_DOUBTFUL_P = 0.02
+# Power-scaling sensitivity above 0.05 counts as sensitive (the default
+# threshold of Kallioinen et al. 2024); sensitivity to both prior and
+# likelihood is their signature of prior-data conflict.
+PSENSE_THRESHOLD = 0.05
+# Sensitivity this far above the threshold on both sides is a strong conflict.
+PSENSE_STRONG = 4 * PSENSE_THRESHOLD
+
+ADVICE = ("Widen or move the prior of {name} after checking its units and scale against "
+          "what the data say; try it with --prior {name}=DIST(ARGS).")
+
+
+@rule("prior_coverage")
+def coverage(f: Finding) -> Judgement:
+    p = f.p_value
+    if p < COVERAGE_BROKEN_P:
+        return Judgement(2, "The priors give data like these almost no probability.",
+                         "Compare each prior with what is known about the process; a prior "
+                         "that rules out the data's scale must be widened or moved.",
+                         strength=3.0)
+    if p < COVERAGE_DOUBTFUL_P:
+        return Judgement(1, "The observed value sits in a tail of the prior predictive.", strength=1.0)
+    return Judgement(0, "Within the range the priors expect.")
+
+
+@rule("prior_sensitivity")
+def sensitivity(f: Finding) -> Judgement:
+    n = f.numbers
+    name, prior, likelihood = n["parameter"], n["prior"], n["likelihood"]
+    base = name.split("[")[0]
+    if prior >= PSENSE_THRESHOLD and likelihood >= PSENSE_THRESHOLD:
+        level = 2 if min(prior, likelihood) >= PSENSE_STRONG else 1
+        return Judgement(level, f"Prior-data conflict on {name}: the posterior moves when either "
+                                f"the prior or the likelihood is scaled.",
+                         ADVICE.format(name=base), strength=prior + likelihood)
+    if prior >= PSENSE_THRESHOLD:
+        return Judgement(1, f"{name} is driven by its prior more than by the data.",
+                         f"The data say little about {name}; report its prior as an assumption "
+                         f"or collect data that inform it.", strength=prior)
+    return Judgement(0, "Not sensitive to the prior.")
+
+
+@rule("prior_sensitivity_failed")
+def sensitivity_failed(f: Finding) -> Judgement:
+    return Judgement(0, "Power-scaling could not be computed; nothing is concluded from it.")

@@ -1,0 +1,143 @@
+"""Writers: turn a finished run into files. They compute no statistics.
+
+Every file is written atomically (a temporary file in the same folder, then a
+rename), so a crash or Ctrl-C mid-write leaves the previous file or none,
+never a truncated one. An existing run folder is only reused with ``force``.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import re
+import tempfile
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+from workbench.errors import OutputError
+
+SCHEMA = "workbench.summary/1"
+
+
+# --- files -------------------------------------------------------------------
+
+
+def atomic_write(path: str | Path, data: bytes | str) -> Path:
+    """Write ``data`` to ``path`` through a temporary file and a rename."""
+    path = Path(path)
+    raw = data.encode("utf-8") if isinstance(data, str) else data
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(raw)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def atomic_write_with(path: str | Path, write) -> Path:
+    """Let ``write(temp_path)`` produce the file, then rename it into place."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def run_folder(out: str | None, label: str, force: bool, root: str | Path = "reports") -> Path:
+    """The folder a run writes into.
+
+    With ``out``: that folder, refused if it already holds a run unless
+    ``force``. Without: a new folder under ``root`` named by time and design.
+    """
+    if out:
+        folder = Path(out)
+        if folder.exists() and any(folder.iterdir()) and not force:
+            raise OutputError(
+                f"output folder {str(folder)!r} already holds files; expected a new or empty "
+                f"folder (use --force to overwrite)"
+            )
+    else:
+        stamp = datetime.now().strftime("%Y%m%d-%H%M%S")
+        slug = re.sub(r"[^A-Za-z0-9_.=-]+", "_", label)[:60].strip("_") or "run"
+        folder = Path(root) / f"{stamp}-{slug}"
+        n = 1
+        while folder.exists():
+            n += 1
+            folder = Path(root) / f"{stamp}-{slug}-{n}"
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise OutputError(f"output folder {str(folder)!r}: cannot create it ({err.strerror})") from None
+    return folder
+
+
+# --- summary.json --------------------------------------------------------------
+
+
+def clean(value: Any) -> Any:
+    """JSON-safe copy: NaN and infinities become null, NumPy scalars plain."""
+    if isinstance(value, dict):
+        return {str(k): clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        try:
+            value = value.item()
+        except (ValueError, AttributeError):
+            return clean(list(value))
+    if isinstance(value, float) and (math.isnan(value) or math.isinf(value)):
+        return None
+    return value
+
+
+def summary(run) -> dict:
+    """The ``workbench.summary/1`` document of a check run."""
+    doc = {
+        "schema": SCHEMA,
+        "recipe": run.design.name,
+        "design": dict(run.design.options),
+        "priors": dict(run.design.priors),
+        "seed": run.seed,
+        "data": {"path": run.data_info.path, "sha256": run.data_info.sha256, "rows": run.data_info.rows},
+        "versions": run.versions,
+        "started": run.started,
+        "computation": {**run.extras.get("computation", {}), "seconds": round(run.seconds, 2)},
+        "assumptions": [v.to_dict() for v in run.verdicts],
+        "loo": {k: run.extras["loo"][k] for k in ("elpd", "se", "p_loo", "bad_pareto_k")}
+        if "loo" in run.extras else None,
+        "calibration": run.calibration.to_dict() if run.calibration is not None else None,
+        "sampling": {"draws": run.settings.draws, "tune": run.settings.tune, "chains": run.settings.chains},
+    }
+    if "derived" in run.extras:
+        doc["derived"] = run.extras["derived"]
+    return clean(doc)
+
+
+def write_json(path: str | Path, doc: dict) -> Path:
+    return atomic_write(path, json.dumps(clean(doc), indent=2, ensure_ascii=False, allow_nan=False) + "\n")
+
+
+def write_posterior(path: str | Path, idata) -> Path:
+    """The run's DataTree as NetCDF (object-typed sampler messages dropped)."""
+
+    def write(tmp):
+        tree = idata.copy()
+        for node in tree.subtree:
+            drop = [n for n, v in node.dataset.data_vars.items() if v.dtype == object]
+            if drop:
+                node.dataset = node.dataset.drop_vars(drop)
+        tree.to_netcdf(tmp)
+
+    return atomic_write_with(path, write)
