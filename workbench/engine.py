@@ -52,7 +52,8 @@ class Sampler:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             self.compiled = nutpie.compile_pymc_model(model)
-        self.data_names = set(self.compiled.shared_data)
+        # shared_data is keyed by opaque ids; the container names sit on the variables.
+        self.data_names = {var.name for var in self.compiled.shared_var_keys}
 
     def run(
         self,
