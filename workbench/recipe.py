@@ -107,6 +107,13 @@ class Relaxation:
     build: Callable[..., Any]
     null: float
     negligible: float
+    # applies(options) -> False when the design's options already relax the
+    # assumption (e.g. an estimated eventual share); None means always.
+    applies: Callable[[Mapping[str, Any]], bool] | None = None
+
+    def applies_to(self, options: Mapping[str, Any]) -> bool:
+        """Whether this expansion means anything under the given options."""
+        return self.applies is None or bool(self.applies(options))
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,295 @@
+"""timing-curve: when units of a cohort have one event, and how many ever do.
+
+Story. A cohort of ``exposed`` units starts at age 0. Each unit ever has the
+event with probability ``eventual`` (1 under ``eventual=all``); if it does, its
+age at the event follows a parametric family F with a timing ``scale`` and a
+``shape``. The share of the cohort with the event by age t is
+
+    C(t) = eventual * F(t).
+
+The table counts events cumulatively up to each age at which a cohort was
+seen. A cohort seen once is one binomial draw; a cohort seen at several ages
+gives one multinomial draw of the increments between its ages and of the units
+still without the event (interval censoring), never independent binomials.
+
+Ages enter the model in units of the reference age (the median positive age
+in the table), so the default prior on ``scale`` fits days, weeks or years
+alike; :func:`derived` reports timings back in the table's unit.
+
+Columns: ``cohort``, ``age``, ``exposed``, ``events`` (optional ``group``).
+Options: ``family``, ``eventual``, ``pooling`` and ``centred``.
+
+References
+----------
+Farewell, V. T. (1982). The use of mixture models for the analysis of survival
+data with long-term survivors. Biometrics 38(4), 1041-1046.
+Kalbfleisch, J. D. and Prentice, R. L. (2002). The Statistical Analysis of
+Failure Time Data, 2nd ed. (parametric families, grouped data likelihood).
+"""
+
+from __future__ import annotations
+
+from functools import partial
+
+import numpy as np
+import pandas as pd
+
+from workbench import cohorts, curves
+from workbench.recipe import (
+    Assumption,
+    Column,
+    Dataset,
+    DemoScenario,
+    Option,
+    Parameter,
+    Recipe,
+    Relaxation,
+    Statistic,
+)
+
+NAME = "timing-curve"
+OUTCOME = "events"
+
+EVENTUAL = Option(
+    "eventual",
+    "estimate (some units may never have the event) or all (every unit has it eventually)",
+    default="estimate",
+    choices=("estimate", "all"),
+)
+
+
+def validate(table: pd.DataFrame, options: dict) -> Dataset:
+    """Check the table (see :func:`workbench.cohorts.validate`)."""
+    return cohorts.validate(table, [OUTCOME], options, NAME)
+
+
+# --- the story in NumPy -------------------------------------------------------------
+
+
+def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dict) -> Dataset:
+    """Follow every unit of every cohort and count events at the table's ages.
+
+    ``params`` is one draw of the model's variables (``scale`` or
+    ``scale_group``, ``shape``, ``eventual``) and may carry the relaxation
+    parameters (``never``, ``curve_power``, ``cohort_sd`` or
+    ``cohort_effect``, ``overdispersion``) so that faults can be planted.
+    """
+    eventual = float(params.get("eventual", 1.0)) if options["eventual"] == "estimate" else 1.0
+    eventual *= 1.0 - float(params.get("never", 0.0))
+    counts = cohorts.simulate_units(
+        rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
+        params["shape"], [eventual],
+        power=float(np.exp(params.get("curve_power", 0.0))),
+        rho=float(params.get("overdispersion", 0.0)),
+    )
+    return data.replace(events=counts[:, 0])
+
+
+# --- the story in PyMC ------------------------------------------------------------------
+
+
+def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
+    """The PyMC model; ``relax`` names one relaxation parameter to add."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    with pm.Model(coords=cohorts.coords(data)) as model:
+        scale_group = cohorts.timing_scales(data, options, prior, dims=())
+        shape = prior("shape")
+        if options["eventual"] == "estimate":
+            eventual = prior("eventual")
+            if relax == "never":
+                # Already relaxed by the estimated eventual share: the
+                # expansion does not apply and stays at its null.
+                pm.Deterministic("never", pt.zeros(()))
+        elif relax == "never":
+            eventual = 1.0 - prior("never")
+        else:
+            eventual = pt.ones(())
+        share = pm.Deterministic("share", pt.reshape(eventual, (1,)), dims="outcome")
+        cumulative = cohorts.cumulative_tensor(
+            data, options["family"], scale_group, shape, share, relax, prior
+        )
+        pm.Deterministic("cumulative", cumulative[:, 0], dims="row")
+        cohorts.cell_likelihood(data, cohorts.cells_tensor(data, cumulative), relax, prior)
+    return model
+
+
+# --- report quantities --------------------------------------------------------------------
+
+
+def derived(data: Dataset, options: dict, posterior: dict) -> dict:
+    """Eventual share and, per group, the age by which half of the eventual events happen."""
+    out = {"eventual share": np.asarray(posterior["share"], dtype=float).reshape(-1)}
+    scale = np.asarray(posterior["scale_group"], dtype=float)
+    scale = scale.reshape(scale.shape[0], -1)
+    shape = np.asarray(posterior["shape"], dtype=float).reshape(-1)
+    for g, label in enumerate(data.labels["group"]):
+        median = curves.quantile(options["family"], 0.5, scale[:, g], shape) * data.extra["age_ref"]
+        out["median age" if len(data.labels["group"]) == 1 else f"median age ({label})"] = median
+    return out
+
+
+def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
+    """Cumulative share with the event over age: fitted curve and band against the cohorts."""
+    return cohorts.figure(data, options["family"], posterior, "share with the event")
+
+
+# --- demo scenario ---------------------------------------------------------------------------
+
+# Invented: trays of tree seeds sown on different days and inspected for
+# seedlings; about 82% of seeds are viable, emergence follows a Weibull curve
+# with scale 9 days and shape 2.4.
+DEMO_TRUTH_DAYS = {"scale_days": 9.0, "shape": 2.4, "eventual": 0.82}
+
+
+def demo(rng: np.random.Generator) -> DemoScenario:
+    """Seedling emergence in a nursery: trays sown on 14 days, inspected until emergence ends."""
+    inspections = np.array([3, 5, 7, 10, 14, 21, 28])
+    rows = []
+    for tray in range(14):
+        sown_days_ago = 30 - 2 * tray  # the youngest trays have fewer inspections so far
+        seeds = int(rng.integers(60, 140))
+        for day in inspections[inspections <= sown_days_ago]:
+            rows.append({"cohort": f"tray-{tray + 1:02d}", "age": int(day), "exposed": seeds, "events": 0})
+    skeleton = pd.DataFrame(rows)
+    options = {"family": "weibull", "eventual": "estimate"}
+    design_options = RECIPE.read_options(options)
+    data = validate(skeleton, design_options)
+    truth = {
+        "scale": DEMO_TRUTH_DAYS["scale_days"] / data.extra["age_ref"],
+        "shape": DEMO_TRUTH_DAYS["shape"],
+        "eventual": DEMO_TRUTH_DAYS["eventual"],
+    }
+    simulated = simulate(rng, data, truth, design_options)
+    table = simulated.to_frame()[["cohort", "age", "exposed", "events"]]
+    return DemoScenario(
+        title="Seedling emergence in a tree nursery",
+        story=("A nursery sows a tray of native tree seed every other day and counts seedlings at "
+               "3, 5, 7, 10, 14, 21 and 28 days; not every seed is viable. How many seeds ever "
+               "emerge, and how fast? (ages in days; model scale is relative to the median "
+               f"inspection age of {data.extra['age_ref']:g} days)"),
+        table=table,
+        options=options,
+        truth={**truth, "scale_days": DEMO_TRUTH_DAYS["scale_days"]},
+    )
+
+
+# --- assumptions --------------------------------------------------------------------------------
+
+
+def _relaxation(parameter, meaning, null, negligible, applies=None):
+    return Relaxation(
+        parameter=parameter,
+        meaning=meaning,
+        build=partial(build_model, relax=parameter),
+        null=null,
+        negligible=negligible,
+        applies=applies,
+    )
+
+
+def _eventual_is_all(options) -> bool:
+    return options.get("eventual") == "all"
+
+
+RECIPE = Recipe(
+    name=NAME,
+    summary="Units of a cohort have one event at a random age; some may never have it.",
+    columns=(
+        Column("cohort", "label of the cohort (units that started together)"),
+        Column("age", "age at which the cohort was seen (>= 0, any unit of time)"),
+        Column("exposed", "number of units in the cohort (>= 1, the same on every row of a cohort)"),
+        Column("events", "units with the event by that age (cumulative, non-decreasing in age)"),
+        Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
+    ),
+    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.CENTRED),
+    parameters=(
+        # Scale in units of the median observed age: median 1, 95% between
+        # 0.05 and 19 times it, from cohorts seen long after to long before.
+        Parameter("scale", "timing scale of the curve, relative to the median age seen", "lognormal(0,1.5)"),
+        Parameter("scale_sd", "sd of log scale across groups (partial pooling)", "halfnormal(0.5)"),
+        # Median 1.35, 95% between 0.4 and 4.4: from spread-out to bunched timing.
+        Parameter("shape", "shape of the curve (larger: event ages bunched more tightly)", "lognormal(0.3,0.6)"),
+        Parameter("eventual", "share of units that ever have the event (eventual=estimate)", "beta(1,1)"),
+        # Relaxation parameters (only present in the expanded models).
+        Parameter("never", "share of units that never have the event (eventual=all relaxed)", "beta(1,20)"),
+        Parameter("curve_power", "log exponent of the exponentiated family F ** exp(curve_power)", "normal(0,0.5)"),
+        Parameter("cohort_sd", "sd of log timing scale between cohorts", "halfnormal(0.3)"),
+        Parameter("overdispersion", "correlation of units within a cohort (Dirichlet-multinomial)", "beta(1,30)"),
+    ),
+    assumptions=(
+        Assumption(
+            key="curve_shape",
+            statement="Event ages follow the chosen family.",
+            statistic=Statistic(
+                "late_trend",
+                "slope of standardised cumulative residuals on log age past the median age",
+                cohorts.late_trend,
+            ),
+            relaxation=_relaxation(
+                "curve_power", "the curve may be the family raised to a power (exponentiated family)",
+                null=0.0, negligible=0.1,
+            ),
+            advice="Try another family (--set family=...) or a curve with one more shape parameter; "
+                   "look at where the residuals bend.",
+        ),
+        Assumption(
+            key="eventual_fraction",
+            statement="The share of units that ever have the event is as modelled "
+                      "(all of them under eventual=all, one estimated share otherwise).",
+            statistic=Statistic(
+                "plateau_level",
+                "standardised residual of cumulative events at the oldest quarter of rows",
+                cohorts.plateau_shortfall,
+            ),
+            relaxation=_relaxation(
+                "never", "a share of units may never have the event",
+                null=0.0, negligible=0.01, applies=_eventual_is_all,
+            ),
+            advice="Let a share of units never have the event (--set eventual=estimate), or follow "
+                   "the oldest cohorts longer before trusting the plateau.",
+        ),
+        Assumption(
+            key="cohort_homogeneity",
+            statement="Every cohort (within a group) follows the same timing curve.",
+            statistic=Statistic(
+                "cohort_spread",
+                "variance across cohorts of the mean standardised residual",
+                cohorts.cohort_spread,
+                sides="greater",
+            ),
+            relaxation=_relaxation(
+                "cohort_sd", "each cohort's timing scale may differ (log-normal cohort effect)",
+                null=0.0, negligible=0.05,
+            ),
+            advice="Cohorts differ in timing: add a group column for what distinguishes them, or a "
+                   "cohort effect on the timing scale.",
+        ),
+        Assumption(
+            key="independent_units",
+            statement="Units of a cohort have their events independently (multinomial variation only).",
+            statistic=Statistic(
+                "dispersion",
+                "Pearson chi-square per likelihood cell (1 under multinomial variation)",
+                cohorts.cell_dispersion,
+                sides="greater",
+            ),
+            relaxation=_relaxation(
+                "overdispersion", "units of a cohort share a common influence (Dirichlet-multinomial)",
+                null=0.0, negligible=0.005,
+            ),
+            advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
+                   "site, a day); model it as an effect or use the overdispersed likelihood.",
+        ),
+    ),
+    validate=validate,
+    simulate=simulate,
+    build_model=build_model,
+    observed=cohorts.observed,
+    outcome_names=("y",),
+    covariate="age",
+    figure=figure,
+    derived=derived,
+    demo=demo,
+)

@@ -1,0 +1,568 @@
+"""Cohorts followed over age: cumulative counts of one or more outcomes.
+
+Shared machinery of the ``timing-curve`` (one outcome) and
+``competing-risks`` (several outcomes) recipes. A cohort of ``exposed`` units
+is seen at one or more ages; at each age the table gives, per outcome, how
+many units have had that outcome by then. With cumulative incidence
+``C_k(t) = share_k * F_k(t) ** power`` of outcome k (the mixture model of
+Larson and Dinse 1985; one outcome with ``share = eventual`` is a cure-type
+timing curve), a cohort seen at ages ``a_1 < ... < a_m`` splits its units into
+cells: those with outcome k between ``a_{j-1}`` and ``a_j`` (``a_0 = 0``) and
+those still open at ``a_m``. The cell counts are one multinomial draw, so
+repeated looks at a cohort are interval-censored observations, never
+independent binomials.
+
+Layout of the likelihood: one multinomial per cohort over ``M * K + 1``
+cells (M = most ages of any cohort, K outcomes); cell ``j * K + k`` holds the
+increment of outcome k at the cohort's j-th age and the last cell the units
+still open. Cohorts seen at fewer than M ages have empty padding cells with
+probability ``EPS``.
+
+References
+----------
+Larson, M. G. and Dinse, G. E. (1985). A mixture model for the regression
+analysis of competing risks data. Applied Statistics 34(3), 201-211.
+Turnbull, B. W. (1976). The empirical distribution function with arbitrarily
+grouped, censored and truncated data. JRSS B 38(3), 290-295 (interval
+censoring as multinomial cells).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from workbench import curves, tables
+from workbench.errors import DataError
+from workbench.recipe import Dataset, Option
+from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend, standardised
+
+# Keeps every cell probability strictly inside (0, 1) so the likelihood never
+# sees log(0); far below any rate a count table can resolve.
+EPS = 1e-9
+# Refuse layouts whose padded cell matrix would be larger than this: the
+# likelihood is evaluated over every cell at every gradient step. Common
+# practice for interactive sampling on a laptop, not a published figure.
+MAX_CELLS = 200_000
+
+
+def flag(text: str) -> bool:
+    """Parse true/false text (``--set centred=true``)."""
+    low = str(text).strip().lower()
+    if low in {"true", "yes", "1"}:
+        return True
+    if low in {"false", "no", "0"}:
+        return False
+    raise ValueError("must be true or false")
+
+
+FAMILY = Option(
+    "family",
+    "the event-time family: weibull, loglogistic, lognormal or gamma",
+    default="weibull",
+    choices=curves.FAMILIES,
+)
+POOLING = Option(
+    "pooling",
+    "how groups share the timing scale: none, partial or complete",
+    default="auto",
+    choices=("auto", "none", "partial", "complete"),
+)
+CENTRED = Option(
+    "centred",
+    "true for the centred form of partial pooling (default false: non-centred)",
+    parse=flag,
+    default=False,
+)
+
+
+# --- validation ------------------------------------------------------------------
+
+
+def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: str) -> Dataset:
+    """Check a cohort table once and lay it out for the likelihood.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Columns ``cohort``, ``age``, ``exposed``, the ``outcomes`` (cumulative
+        counts) and optionally ``group``.
+    outcomes : list of str
+        The cumulative count columns, in model order.
+    options : dict
+        The recipe's parsed options (``pooling`` is read here).
+    recipe : str
+        Recipe name for messages.
+
+    Returns
+    -------
+    Dataset
+        Rows sorted by cohort then age; ``extra`` holds the cell layout.
+    """
+    tables.require_columns(table, ["cohort", "age", "exposed", *outcomes], recipe)
+    cohort, cohort_labels = tables.label_column(table, "cohort")
+    age = tables.numeric_column(table, "age")
+    negative = np.flatnonzero(age < 0)
+    if negative.size:
+        i = int(negative[0])
+        raise DataError(f"column 'age' row {i + 1}: expected an age >= 0; found {age[i]:g}")
+    exposed = tables.count_column(table, "exposed", minimum=1)
+    counts = np.column_stack([tables.count_column(table, name) for name in outcomes])
+    if len(outcomes) == 1:
+        tables.not_above(counts[:, 0], exposed, outcomes[0], "exposed")
+    else:
+        total = counts.sum(axis=1)
+        bad = np.flatnonzero(total > exposed)
+        if bad.size:
+            i = int(bad[0])
+            raise DataError(
+                f"row {i + 1}: outcomes {' + '.join(outcomes)} sum to {total[i]} > exposed {exposed[i]}"
+            )
+    if "group" in table.columns:
+        group, group_labels = tables.label_column(table, "group")
+    else:
+        group, group_labels = np.zeros(len(table), dtype=np.int64), ["all"]
+    _same_within_cohort(cohort, cohort_labels, exposed, "exposed")
+    _same_within_cohort(cohort, cohort_labels, group, "group", group_labels)
+
+    order = np.lexsort((age, cohort))
+    cohort_s, age_s = cohort[order], age[order]
+    same = (cohort_s[1:] == cohort_s[:-1])
+    repeat = np.flatnonzero(same & (age_s[1:] == age_s[:-1]))
+    if repeat.size:
+        a, b = sorted((int(order[repeat[0]]), int(order[repeat[0] + 1])))
+        raise DataError(
+            f"column 'age' row {b + 1}: cohort '{cohort_labels[cohort_s[repeat[0]]]}' already has "
+            f"age {age_s[repeat[0]]:g} in row {a + 1}; expected one row per cohort and age"
+        )
+    counts_s = counts[order]
+    for k, name in enumerate(outcomes):
+        drop = np.flatnonzero(same & (counts_s[1:, k] < counts_s[:-1, k]))
+        if drop.size:
+            j = int(drop[0])
+            raise DataError(
+                f"column '{name}' row {int(order[j + 1]) + 1}: {counts_s[j + 1, k]} < "
+                f"{counts_s[j, k]} at the earlier age {age_s[j]:g} (row {int(order[j]) + 1}); "
+                f"expected counts cumulative (non-decreasing in age) within cohort "
+                f"'{cohort_labels[cohort_s[j]]}'"
+            )
+    positive = age[age > 0]
+    if positive.size == 0:
+        raise DataError("column 'age': expected at least one age > 0; found none")
+
+    n_rows, n_cohorts = len(order), len(cohort_labels)
+    first = np.ones(n_rows, dtype=bool)
+    first[1:] = ~same
+    start = np.flatnonzero(first)
+    slot = np.arange(n_rows) - np.repeat(start, np.diff(np.append(start, n_rows)))
+    prev_row = np.where(first, -1, np.arange(n_rows) - 1)
+    last_row = np.append(start[1:] - 1, n_rows - 1)
+    slots = int(slot.max()) + 1
+    tables.check_size(n_rows, recipe)
+    cells = n_cohorts * (slots * len(outcomes) + 1)
+    if cells > MAX_CELLS:
+        raise DataError(
+            f"recipe '{recipe}': expected at most {MAX_CELLS} likelihood cells (cohorts x ages x "
+            f"outcomes); found {cells} (keep fewer ages per cohort or fewer cohorts)"
+        )
+
+    columns = {
+        "cohort": cohort_s,
+        "age": age_s,
+        "exposed": exposed[order],
+        "group": group[order],
+        "slot": slot,
+        "prev_row": prev_row,
+    }
+    for k, name in enumerate(outcomes):
+        columns[name] = counts_s[:, k]
+    data = Dataset(
+        columns=columns,
+        labels={"cohort": cohort_labels, "group": group_labels},
+        source_rows=[[int(i)] for i in order],
+    )
+    pooling = options.get("pooling", "auto")
+    if pooling == "auto":
+        pooling = "partial" if len(group_labels) > 1 else "complete"
+    if pooling in {"none", "partial"} and len(group_labels) < 2:
+        raise DataError(
+            f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
+            f"found {len(group_labels)}"
+        )
+    data.extra.update(
+        outcomes=list(outcomes),
+        pooling=pooling,
+        slots=slots,
+        last_row=last_row,
+        cohort_exposed=exposed[order][last_row],
+        cohort_group=group[order][last_row],
+        # Ages enter the model relative to this reference so that default
+        # priors on the timing scale do not depend on the unit of age.
+        age_ref=float(np.median(positive)),
+    )
+    return data
+
+
+def _same_within_cohort(cohort, labels, values, name, value_labels=None):
+    """One value of ``name`` per cohort; name both rows that disagree."""
+    seen: dict[int, int] = {}
+    for i, (c, v) in enumerate(zip(cohort, values)):
+        j = seen.setdefault(int(c), i)
+        if values[j] != v:
+            show = (lambda x: repr(value_labels[x])) if value_labels else (lambda x: f"{x:g}")
+            raise DataError(
+                f"column '{name}' row {i + 1}: {show(v)} differs from {show(values[j])} given for "
+                f"cohort '{labels[c]}' in row {j + 1}; expected one {name} per cohort"
+            )
+
+
+def relative_age(data: Dataset) -> np.ndarray:
+    """Ages in units of the reference age (the median positive age)."""
+    return data["age"] / data.extra["age_ref"]
+
+
+def counts_of(data: Dataset) -> np.ndarray:
+    """Cumulative counts per row and outcome, shape (rows, K)."""
+    return np.column_stack([data[name] for name in data.extra["outcomes"]])
+
+
+# --- cells -------------------------------------------------------------------------
+
+
+def cells_from_cumulative(data: Dataset, cumulative: np.ndarray, total: np.ndarray) -> np.ndarray:
+    """Cell values (counts or probabilities) from cumulative values per row.
+
+    ``cumulative`` has shape (..., rows, K); ``total`` is what the cells of a
+    cohort add up to (``exposed`` for counts, 1 for probabilities), shape
+    (..., cohorts). Returns shape (..., cohorts, M * K + 1).
+    """
+    cumulative = np.asarray(cumulative, dtype=float)
+    k = cumulative.shape[-1]
+    prev = data["prev_row"]
+    before = np.where((prev >= 0)[:, None], cumulative[..., np.maximum(prev, 0), :], 0.0)
+    increments = cumulative - before
+    lead = cumulative.shape[:-2]
+    cells = np.zeros(lead + (len(data.labels["cohort"]), data.extra["slots"] * k + 1))
+    columns = data["slot"][:, None] * k + np.arange(k)[None, :]
+    cells[..., data["cohort"][:, None], columns] = increments
+    cells[..., -1] = np.asarray(total) - cumulative[..., data.extra["last_row"], :].sum(axis=-1)
+    return cells
+
+
+def cell_counts(data: Dataset) -> np.ndarray:
+    """The observed cell counts, shape (cohorts, M * K + 1) (the ``counts`` container)."""
+    cells = cells_from_cumulative(data, counts_of(data), data.extra["cohort_exposed"])
+    return np.rint(cells).astype(np.int64)
+
+
+def real_cells(data: Dataset) -> np.ndarray:
+    """Mask of the cells that exist (not padding), shape (cohorts, M * K + 1)."""
+    k = len(data.extra["outcomes"])
+    mask = np.zeros((len(data.labels["cohort"]), data.extra["slots"] * k + 1), dtype=bool)
+    mask[data["cohort"][:, None], data["slot"][:, None] * k + np.arange(k)[None, :]] = True
+    mask[:, -1] = True
+    return mask
+
+
+def cell_probabilities(data: Dataset, cumulative: np.ndarray) -> np.ndarray:
+    """Cell probabilities from cumulative incidence per row, clipped and normalised."""
+    p = cells_from_cumulative(data, cumulative, 1.0)
+    p = np.clip(p, EPS, 1.0)
+    return p / p.sum(axis=-1, keepdims=True)
+
+
+def cumulative_incidence(family, age, scale, shape, share, power=1.0) -> np.ndarray:
+    """``share_k * F_k(age) ** power`` (NumPy); ``age`` (rows,), the rest broadcast to (rows, K)."""
+    f = curves.cdf(family, np.asarray(age)[:, None], scale, shape)
+    return np.asarray(share) * f ** power
+
+
+# --- the story in PyMC ---------------------------------------------------------------
+
+
+def timing_scales(data: Dataset, options: dict, prior, dims: tuple):
+    """Scale of each group (and outcome), pooled as the ``pooling`` option says.
+
+    Creates ``scale`` (and ``scale_sd`` / ``scale_offset`` for partial
+    pooling) and the deterministic ``scale_group`` with dims
+    ``("group", *dims)``; returns ``scale_group``.
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    pooling = data.extra["pooling"]
+    n_groups = len(data.labels["group"])
+    group_dims = ("group", *dims)
+    if pooling == "complete":
+        scale = prior("scale", dims=dims or None)
+        log_group = pt.broadcast_to(pt.log(scale), (n_groups, *pt.shape(scale)))
+    elif pooling == "none":
+        log_group = pt.log(prior("scale", dims=group_dims))
+    else:
+        scale = prior("scale", dims=dims or None)  # typical scale across groups
+        spread = prior("scale_sd")  # sd of log scale across groups
+        if options.get("centred"):
+            log_group = pm.Normal("log_scale_group", pt.log(scale), spread, dims=group_dims)
+        else:
+            offset = pm.Normal("scale_offset", 0.0, 1.0, dims=group_dims)
+            log_group = pt.log(scale) + spread * offset
+    return pm.Deterministic("scale_group", pt.exp(log_group), dims=group_dims)
+
+
+def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, relax: str | None, prior):
+    """Cumulative incidence per row and outcome (rows, K) as a PyTensor expression.
+
+    Adds the shared relaxations: ``curve_power`` (F ** exp(curve_power),
+    the exponentiated family) and ``cohort_sd`` (a cohort effect on log scale).
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    k = len(data.extra["outcomes"])
+    scale_group = pt.reshape(scale_group, (len(data.labels["group"]), k))
+    scale_row = scale_group[data["group"]]
+    if relax == "cohort_sd":
+        sd = prior("cohort_sd")
+        z = pm.Normal("cohort_z", 0.0, 1.0, dims="cohort")
+        effect = pm.Deterministic("cohort_effect", sd * z, dims="cohort")
+        scale_row = scale_row * pt.exp(effect[data["cohort"]])[:, None]
+    age = pt.constant(relative_age(data))[:, None]
+    f = curves.cdf_tensor(family, age, scale_row, pt.reshape(shape, (k,)))
+    if relax == "curve_power":
+        f = f ** pt.exp(prior("curve_power"))
+    return pt.reshape(share, (k,)) * f
+
+
+def cells_tensor(data: Dataset, cumulative):
+    """Cell probabilities (cohorts, M * K + 1) from cumulative incidence per row (PyTensor)."""
+    import pytensor.tensor as pt
+
+    k = len(data.extra["outcomes"])
+    prev = data["prev_row"]
+    before = pt.switch(pt.constant(prev >= 0)[:, None], cumulative[np.maximum(prev, 0)], 0.0)
+    increments = cumulative - before
+    cells = pt.zeros((len(data.labels["cohort"]), data.extra["slots"] * k + 1))
+    columns = data["slot"][:, None] * k + np.arange(k)[None, :]
+    cells = pt.set_subtensor(cells[data["cohort"][:, None], columns], increments)
+    cells = pt.set_subtensor(cells[:, -1], 1.0 - cumulative[data.extra["last_row"]].sum(axis=-1))
+    cells = pt.clip(cells, EPS, 1.0)
+    return cells / cells.sum(axis=-1, keepdims=True)
+
+
+def cell_likelihood(data: Dataset, p, relax: str | None, prior):
+    """The observed cells ``y``: multinomial per cohort, Dirichlet-multinomial when relaxed."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    counts = pm.Data("counts", cell_counts(data), dims=("cohort", "cell"))
+    n = data.extra["cohort_exposed"]
+    if relax == "overdispersion":
+        rho = prior("overdispersion")
+        kappa = 1.0 / pt.clip(rho, EPS, 1.0 - EPS) - 1.0
+        return pm.DirichletMultinomial("y", n=n, a=p * kappa, observed=counts, dims=("cohort", "cell"))
+    return pm.Multinomial("y", n=n, p=p, observed=counts, dims=("cohort", "cell"))
+
+
+def coords(data: Dataset) -> dict:
+    """Model coordinates of a cohort layout."""
+    k = len(data.extra["outcomes"])
+    return {
+        "row": np.arange(data.rows),
+        "cohort": data.labels["cohort"],
+        "group": data.labels["group"],
+        "outcome": data.extra["outcomes"],
+        "cell": np.arange(data.extra["slots"] * k + 1),
+    }
+
+
+def observed(data: Dataset) -> dict:
+    """Values of the outcome container: the cell counts."""
+    return {"counts": cell_counts(data)}
+
+
+# --- the story in NumPy ----------------------------------------------------------------
+
+
+def scales_of(rng: np.random.Generator, data: Dataset, params: dict, k: int) -> np.ndarray:
+    """Scale per cohort and outcome (cohorts, K) from a parameter draw.
+
+    Reads ``scale_group`` when the draw has it, else ``scale`` (one per group
+    under ``pooling=none``). A ``cohort_effect`` per cohort, or a
+    ``cohort_sd`` from which fresh effects are drawn, shifts each cohort's
+    log scale.
+    """
+    n_groups = len(data.labels["group"])
+    if "scale_group" in params:
+        group = np.asarray(params["scale_group"], dtype=float).reshape(n_groups, k)
+    elif data.extra["pooling"] == "none":
+        group = np.asarray(params["scale"], dtype=float).reshape(n_groups, k)
+    else:
+        group = np.broadcast_to(np.asarray(params["scale"], dtype=float).reshape(1, k), (n_groups, k))
+    n_cohorts = len(data.labels["cohort"])
+    if "cohort_effect" in params:
+        effect = np.asarray(params["cohort_effect"], dtype=float).reshape(n_cohorts)
+    else:
+        effect = rng.normal(0.0, float(params.get("cohort_sd", 0.0)), n_cohorts)
+    return group[data.extra["cohort_group"]] * np.exp(effect)[:, None]
+
+
+def simulate_units(rng: np.random.Generator, data: Dataset, family: str, scales: np.ndarray,
+                   shape, share, power: float = 1.0, rho: float = 0.0) -> np.ndarray:
+    """Follow every unit of every cohort; return cumulative counts per row (rows, K).
+
+    Each unit ends in outcome k with probability ``share_k`` (or never), at a
+    time drawn from family F_k with the cohort's scale; with ``power != 1``
+    the time follows F_k ** power (drawn by inverting U ** (1 / power)).
+    With ``rho > 0`` the units of a cohort share one draw of the cell
+    probabilities from a Dirichlet with concentration (1 / rho - 1): the
+    Dirichlet-multinomial story of correlated units.
+    """
+    k = scales.shape[1]
+    shape = np.broadcast_to(np.asarray(shape, dtype=float), (k,))
+    share = np.broadcast_to(np.asarray(share, dtype=float), (k,))
+    out = np.zeros((data.rows, k), dtype=np.int64)
+    ages = data["age"] / data.extra["age_ref"]
+    if rho > 0:
+        kappa = 1.0 / rho - 1.0
+        cumulative = share * curves.cdf(family, ages[:, None], scales[data["cohort"]], shape) ** power
+        p = cell_probabilities(data, cumulative)
+        mask = real_cells(data)
+        for c, n in enumerate(data.extra["cohort_exposed"]):
+            alpha = p[c][mask[c]] * kappa
+            cells = np.zeros(mask.shape[1], dtype=np.int64)
+            cells[mask[c]] = rng.multinomial(n, rng.dirichlet(alpha))
+            rows = np.flatnonzero(data["cohort"] == c)
+            inc = cells[:-1].reshape(-1, k)[data["slot"][rows]]
+            out[rows] = np.cumsum(inc, axis=0)
+        return out
+    closed = 1.0 - share.sum()
+    for c, n in enumerate(data.extra["cohort_exposed"]):
+        rows = np.flatnonzero(data["cohort"] == c)
+        outcome = rng.choice(k + 1, size=n, p=np.append(share, max(closed, 0.0)))
+        for j in range(k):
+            who = outcome == j
+            m = int(who.sum())
+            if power == 1.0:
+                times = curves.draw_times(rng, family, scales[c, j], shape[j], m)
+            else:
+                times = curves.quantile(family, rng.random(m) ** (1.0 / power), scales[c, j], shape[j])
+            times = np.sort(times)
+            out[rows, j] = np.searchsorted(times, ages[rows], side="right")
+    return out
+
+
+# --- targeted statistics -----------------------------------------------------------------
+
+
+def cumulative_counts(data: Dataset, y: np.ndarray) -> np.ndarray:
+    """Cumulative counts per row and outcome (S, rows, K) from cell counts (S, cohorts, cells)."""
+    k = len(data.extra["outcomes"])
+    y = np.asarray(y, dtype=float)
+    inc = y[..., :-1].reshape(y.shape[:-1] + (data.extra["slots"], k))
+    cum = np.cumsum(inc, axis=-2)
+    return cum[..., data["cohort"], data["slot"], :]
+
+
+def _moments(data: Dataset, draws: dict):
+    cum = np.asarray(draws["cumulative"], dtype=float)
+    cum = cum.reshape(cum.shape[0], data.rows, -1)
+    n = data["exposed"][:, None]
+    return n * cum, n * cum * (1.0 - cum)
+
+
+def _flat(*arrays):
+    return [a.reshape(a.shape[0], -1) for a in arrays]
+
+
+def late_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Slope of standardised cumulative residuals on log age, over rows at or past the median age."""
+    mean, var = _moments(data, draws)
+    y = cumulative_counts(data, outcomes["y"])
+    late = data["age"] >= np.median(data["age"])
+    k = mean.shape[-1]
+    log_age = np.repeat(np.log(np.maximum(data["age"][late], curves.TINY_TIME)), k)
+    return residual_trend(*_flat(y[:, late], mean[:, late], var[:, late]), log_age)
+
+
+def plateau_shortfall(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Standardised residual of all outcomes together at the oldest quarter of rows."""
+    mean, var = _moments(data, draws)
+    y = cumulative_counts(data, outcomes["y"]).sum(axis=-1)
+    # Variance of the sum: the outcomes of one row are negatively correlated,
+    # n * C (1 - C) for the total incidence C.
+    total = mean.sum(axis=-1) / data["exposed"]
+    return nearest_shortfall(y, mean.sum(axis=-1), data["exposed"] * total * (1 - total), -data["age"])
+
+
+def cohort_spread(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Variance across cohorts of each cohort's mean standardised cumulative residual."""
+    mean, var = _moments(data, draws)
+    y = cumulative_counts(data, outcomes["y"])
+    r = standardised(y, mean, var).mean(axis=-1)
+    n_cohorts = len(data.labels["cohort"])
+    sums = np.zeros((r.shape[0], n_cohorts))
+    np.add.at(sums, (slice(None), data["cohort"]), r)
+    per_cohort = sums / np.bincount(data["cohort"], minlength=n_cohorts)
+    return per_cohort.var(axis=-1)
+
+
+def cell_dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Pearson chi-square per real cell of the multinomial (1 under multinomial variation)."""
+    cum = np.asarray(draws["cumulative"], dtype=float)
+    p = cell_probabilities(data, cum.reshape(cum.shape[0], data.rows, -1))
+    n = data.extra["cohort_exposed"][:, None]
+    mask = real_cells(data)
+    y = np.asarray(outcomes["y"], dtype=float)
+    return pearson_dispersion(y[:, mask], (n * p)[:, mask], (n * p * (1 - p))[:, mask])
+
+
+# --- figure -----------------------------------------------------------------------------------
+
+
+def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int = 200):
+    """Cumulative share per outcome over age, stacked, fitted band against the data.
+
+    One panel per group (at most four). Points are each row's observed
+    cumulative shares (stacked over outcomes, sized by exposed); lines and
+    bands are the posterior median and 90% interval of the stacked curves.
+    """
+    import matplotlib.pyplot as plt
+
+    from workbench.report.plots import FIT, INK
+
+    outcomes = data.extra["outcomes"]
+    k = len(outcomes)
+    groups = data.labels["group"][:4]
+    fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 1.2, 3.6), squeeze=False)
+    scale = np.asarray(posterior["scale_group"], dtype=float)
+    s = scale.shape[0]
+    pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
+    scale = scale.reshape(s, len(data.labels["group"]), k)[pick]
+    shape = np.asarray(posterior["shape"], dtype=float).reshape(s, -1)[pick]
+    share = np.asarray(posterior["share"], dtype=float).reshape(s, -1)[pick]
+    power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float))[pick]
+    grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
+    rel = grid / data.extra["age_ref"]
+    observed_share = counts_of(data) / data["exposed"][:, None]
+    tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.15, 0.85, k)] if k > 1 else [FIT]
+    for g, ax in enumerate(axes[0]):
+        f = curves.cdf(family, rel[None, :, None], scale[:, None, g, :], shape[:, None, :])
+        stacked = np.cumsum(share[:, None, :] * f ** power[:, None, None], axis=-1)
+        lo, mid, hi = np.percentile(stacked, [5, 50, 95], axis=0)
+        rows = data["group"] == g
+        size = 8 + 40 * data["exposed"][rows] / data["exposed"].max()
+        obs = np.cumsum(observed_share[rows], axis=-1)
+        for j in range(k):
+            label = outcomes[j] if k > 1 else "fitted"
+            ax.fill_between(grid, lo[:, j], hi[:, j], color=tones[j], alpha=0.25, lw=0)
+            ax.plot(grid, mid[:, j], color=tones[j], lw=1.6, label=f"{label} (median, 90%)")
+            ax.scatter(data["age"][rows], obs[:, j], s=size, facecolor="none",
+                       edgecolor=tones[j] if k > 1 else INK, lw=0.9)
+        ax.set_ylim(0, 1.02)
+        ax.set_xlabel("age")
+        ax.set_title(groups[g] if len(data.labels["group"]) > 1 else "", fontsize=10)
+        ax.spines[["top", "right"]].set_visible(False)
+    axes[0][0].set_ylabel(ylabel)
+    axes[0][-1].legend(fontsize=8, frameon=False, loc="lower right")
+    fig.tight_layout()
+    return fig
