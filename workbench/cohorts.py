@@ -553,7 +553,7 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
         size = 8 + 40 * data["exposed"][rows] / data["exposed"].max()
         obs = np.cumsum(observed_share[rows], axis=-1)
         for j in range(k):
-            label = outcomes[j] if k > 1 else "fitted"
+            label = " + ".join(outcomes[: j + 1]) if k > 1 else "fitted"
             ax.fill_between(grid, lo[:, j], hi[:, j], color=tones[j], alpha=0.25, lw=0)
             ax.plot(grid, mid[:, j], color=tones[j], lw=1.6, label=f"{label} (median, 90%)")
             ax.scatter(data["age"][rows], obs[:, j], s=size, facecolor="none",

@@ -1,0 +1,328 @@
+"""competing-risks: how each unit of a cohort ends, and when.
+
+Story. A cohort of ``exposed`` units starts at age 0. Each unit ends in one
+of K outcomes, outcome k with probability ``share_k``; under
+``resolve=estimate`` a remaining share never ends (stays open). Given its
+outcome, the unit's age at the end follows a family F_k with its own timing
+``scale_k`` and ``shape_k``. The cumulative incidence of outcome k is
+
+    C_k(t) = share_k * F_k(t)
+
+(the mixture model of Larson and Dinse 1985). At each age a cohort was seen
+the table gives, per outcome, how many units have ended that way so far; the
+units of a cohort fall into cells (outcome k between two looks, or still open
+at the last look) by one multinomial draw.
+
+Columns: ``cohort``, ``age``, ``exposed`` and one cumulative count column per
+outcome (optional ``group``). Options: ``outcomes`` (the count columns, comma
+separated, at least two), ``family``, ``resolve``, ``pooling``, ``centred``.
+Ages enter the model relative to the median positive age, as in
+``timing-curve``.
+
+References
+----------
+Larson, M. G. and Dinse, G. E. (1985). A mixture model for the regression
+analysis of competing risks data. Applied Statistics 34(3), 201-211.
+"""
+
+from __future__ import annotations
+
+from functools import partial
+
+import numpy as np
+import pandas as pd
+
+from workbench import cohorts, curves
+from workbench.recipe import (
+    Assumption,
+    Column,
+    Dataset,
+    DemoScenario,
+    Option,
+    Parameter,
+    Recipe,
+    Relaxation,
+    Statistic,
+)
+
+NAME = "competing-risks"
+
+
+def _outcome_list(text: str) -> tuple[str, ...]:
+    names = tuple(part.strip() for part in str(text).split(",") if part.strip())
+    if len(names) < 2:
+        raise ValueError("needs at least two column names separated by commas")
+    if len(set(names)) != len(names):
+        raise ValueError("names a column twice")
+    reserved = {"cohort", "age", "exposed", "group"}.intersection(names)
+    if reserved:
+        raise ValueError(f"'{sorted(reserved)[0]}' is not an outcome column")
+    return names
+
+
+OUTCOMES = Option("outcomes", "the outcome count columns, comma separated (at least two)", parse=_outcome_list)
+RESOLVE = Option(
+    "resolve",
+    "all (every unit ends in one of the outcomes) or estimate (a share may stay open for good)",
+    default="all",
+    choices=("all", "estimate"),
+)
+
+
+def validate(table: pd.DataFrame, options: dict) -> Dataset:
+    """Check the table (see :func:`workbench.cohorts.validate`)."""
+    return cohorts.validate(table, list(options["outcomes"]), options, NAME)
+
+
+# --- the story in NumPy ---------------------------------------------------------------
+
+
+def _shares(params: dict, k: int) -> np.ndarray:
+    if "share" in params:
+        share = np.asarray(params["share"], dtype=float).reshape(k)
+    else:
+        weight = np.asarray(params["share_weight"], dtype=float).reshape(-1)
+        share = weight[:k] / weight.sum()
+    return share * (1.0 - float(params.get("unresolved", 0.0)))
+
+
+def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dict) -> Dataset:
+    """Follow every unit: draw its outcome, then its age at the end; count per table age.
+
+    ``params`` is one draw of the model's variables (``scale`` or
+    ``scale_group``, ``shape``, ``share`` or ``share_weight``) and may carry
+    ``unresolved``, ``curve_power``, ``cohort_sd`` or ``cohort_effect`` and
+    ``overdispersion`` to plant faults.
+    """
+    k = len(data.extra["outcomes"])
+    counts = cohorts.simulate_units(
+        rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
+        np.asarray(params["shape"], dtype=float).reshape(-1), _shares(params, k),
+        power=float(np.exp(params.get("curve_power", 0.0))),
+        rho=float(params.get("overdispersion", 0.0)),
+    )
+    return data.replace(**{name: counts[:, j] for j, name in enumerate(data.extra["outcomes"])})
+
+
+# --- the story in PyMC -------------------------------------------------------------------
+
+
+def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
+    """The PyMC model; ``relax`` names one relaxation parameter to add."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    k = len(data.extra["outcomes"])
+    model_coords = cohorts.coords(data)
+    estimate = options["resolve"] == "estimate"
+    model_coords["part"] = data.extra["outcomes"] + (["open"] if estimate else [])
+    with pm.Model(coords=model_coords) as model:
+        scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",))
+        shape = prior("shape", dims="outcome")
+        # Normalised gamma weights: a symmetric Dirichlet over the parts.
+        weight = prior("share_weight", dims="part")
+        parts = weight / weight.sum()
+        share = parts[:k]
+        if estimate:
+            pm.Deterministic("open_share", parts[k])
+            if relax == "unresolved":
+                # Already relaxed by the estimated open share: stays at its null.
+                pm.Deterministic("unresolved", pt.zeros(()))
+        elif relax == "unresolved":
+            share = share * (1.0 - prior("unresolved"))
+        share = pm.Deterministic("share", share, dims="outcome")
+        cumulative = cohorts.cumulative_tensor(
+            data, options["family"], scale_group, shape, share, relax, prior
+        )
+        pm.Deterministic("cumulative", cumulative, dims=("row", "outcome"))
+        cohorts.cell_likelihood(data, cohorts.cells_tensor(data, cumulative), relax, prior)
+    return model
+
+
+# --- report quantities ----------------------------------------------------------------------
+
+
+def derived(data: Dataset, options: dict, posterior: dict) -> dict:
+    """Shares at maturity per outcome (and open), and each outcome's median age per group."""
+    outcomes = data.extra["outcomes"]
+    share = np.asarray(posterior["share"], dtype=float)
+    out = {f"share {name}": share[:, j] for j, name in enumerate(outcomes)}
+    if "open_share" in posterior:
+        out["share open for good"] = np.asarray(posterior["open_share"], dtype=float).reshape(-1)
+    scale = np.asarray(posterior["scale_group"], dtype=float)
+    scale = scale.reshape(scale.shape[0], len(data.labels["group"]), len(outcomes))
+    shape = np.asarray(posterior["shape"], dtype=float)
+    for g, label in enumerate(data.labels["group"]):
+        suffix = "" if len(data.labels["group"]) == 1 else f", {label}"
+        for j, name in enumerate(outcomes):
+            median = curves.quantile(options["family"], 0.5, scale[:, g, j], shape[:, j])
+            out[f"median age {name}{suffix}"] = median * data.extra["age_ref"]
+    return out
+
+
+def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
+    """Stacked cumulative shares of the outcomes over age against the cohorts."""
+    return cohorts.figure(data, options["family"], posterior, "share ended (stacked by outcome)")
+
+
+# --- demo scenario -----------------------------------------------------------------------------
+
+# Invented: support tickets opened in weekly batches end either solved or
+# withdrawn by the customer; every ticket ends one way or the other.
+DEMO_TRUTH_DAYS = {
+    "share": [0.7, 0.3],
+    "scale_days": [3.0, 8.0],
+    "shape": [1.4, 1.0],
+}
+
+
+def demo(rng: np.random.Generator) -> DemoScenario:
+    """Support tickets: 10 weekly batches, counted at fixed days after opening."""
+    looks = np.array([1, 2, 4, 7, 14, 28, 42])
+    rows = []
+    for week in range(10):
+        age_now = 70 - 7 * week
+        opened = int(rng.integers(150, 320))
+        for day in looks[looks <= age_now]:
+            rows.append({"cohort": f"week-{week + 1:02d}", "age": int(day), "exposed": opened,
+                         "solved": 0, "withdrawn": 0})
+    options = {"outcomes": "solved,withdrawn", "family": "weibull", "resolve": "all"}
+    design_options = RECIPE.read_options(options)
+    data = validate(pd.DataFrame(rows), design_options)
+    truth = {
+        "share": DEMO_TRUTH_DAYS["share"],
+        "scale": [s / data.extra["age_ref"] for s in DEMO_TRUTH_DAYS["scale_days"]],
+        "shape": DEMO_TRUTH_DAYS["shape"],
+    }
+    simulated = simulate(rng, data, truth, design_options)
+    table = simulated.to_frame()[["cohort", "age", "exposed", "solved", "withdrawn"]]
+    return DemoScenario(
+        title="Support tickets: solved or withdrawn",
+        story=("A help desk follows each week's new tickets at 1, 2, 4, 7, 14, 28 and 42 days; a "
+               "ticket ends solved or withdrawn by the customer. What share ends each way, and how "
+               "fast? (ages in days; model scales are relative to the median look of "
+               f"{data.extra['age_ref']:g} days)"),
+        table=table,
+        options=options,
+        truth={**truth, "scale_days": DEMO_TRUTH_DAYS["scale_days"]},
+    )
+
+
+# --- assumptions ----------------------------------------------------------------------------------
+
+
+def _relaxation(parameter, meaning, null, negligible, applies=None):
+    return Relaxation(
+        parameter=parameter,
+        meaning=meaning,
+        build=partial(build_model, relax=parameter),
+        null=null,
+        negligible=negligible,
+        applies=applies,
+    )
+
+
+def _resolve_is_all(options) -> bool:
+    return options.get("resolve") == "all"
+
+
+RECIPE = Recipe(
+    name=NAME,
+    summary="Each unit of a cohort ends in one of several outcomes, each with its own timing.",
+    columns=(
+        Column("cohort", "label of the cohort (units that started together)"),
+        Column("age", "age at which the cohort was seen (>= 0, any unit of time)"),
+        Column("exposed", "number of units in the cohort (>= 1, the same on every row of a cohort)"),
+        Column("<outcome>", "one column per outcome named in 'outcomes': units ended that way by "
+                            "that age (cumulative)"),
+        Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
+    ),
+    options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.CENTRED),
+    parameters=(
+        # As in timing-curve: scale relative to the median age seen.
+        Parameter("scale", "timing scale of each outcome, relative to the median age seen", "lognormal(0,1.5)"),
+        Parameter("scale_sd", "sd of log scale across groups (partial pooling)", "halfnormal(0.5)"),
+        Parameter("shape", "shape of each outcome's timing curve", "lognormal(0.3,0.6)"),
+        # Gamma(1, 1) weights normalised to shares: a uniform Dirichlet over
+        # the outcomes (and the open part under resolve=estimate).
+        Parameter("share_weight", "unnormalised weight of each outcome's share", "gamma(1,1)"),
+        # Relaxation parameters (only present in the expanded models).
+        Parameter("unresolved", "share of units that never end (resolve=all relaxed)", "beta(1,20)"),
+        Parameter("curve_power", "log exponent of the exponentiated family F ** exp(curve_power)", "normal(0,0.5)"),
+        Parameter("cohort_sd", "sd of log timing scale between cohorts", "halfnormal(0.3)"),
+        Parameter("overdispersion", "correlation of units within a cohort (Dirichlet-multinomial)", "beta(1,30)"),
+    ),
+    assumptions=(
+        Assumption(
+            key="all_resolve",
+            statement="Every unit ends in one of the outcomes eventually (under resolve=all; "
+                      "otherwise one estimated share stays open).",
+            statistic=Statistic(
+                "plateau_level",
+                "standardised residual of all ended units at the oldest quarter of rows",
+                cohorts.plateau_shortfall,
+            ),
+            relaxation=_relaxation(
+                "unresolved", "a share of units may never end",
+                null=0.0, negligible=0.01, applies=_resolve_is_all,
+            ),
+            advice="Some units may never end: use --set resolve=estimate, or look for an outcome "
+                   "that the table does not count.",
+        ),
+        Assumption(
+            key="curve_shape",
+            statement="Each outcome's timing follows the chosen family.",
+            statistic=Statistic(
+                "late_trend",
+                "slope of standardised cumulative residuals on log age past the median age",
+                cohorts.late_trend,
+            ),
+            relaxation=_relaxation(
+                "curve_power", "the curves may be the family raised to a power (exponentiated family)",
+                null=0.0, negligible=0.1,
+            ),
+            advice="Try another family (--set family=...) or a curve with one more shape parameter.",
+        ),
+        Assumption(
+            key="cohort_homogeneity",
+            statement="Every cohort (within a group) has the same shares and timing.",
+            statistic=Statistic(
+                "cohort_spread",
+                "variance across cohorts of the mean standardised residual",
+                cohorts.cohort_spread,
+                sides="greater",
+            ),
+            relaxation=_relaxation(
+                "cohort_sd", "each cohort's timing may differ (log-normal cohort effect)",
+                null=0.0, negligible=0.05,
+            ),
+            advice="Cohorts differ: add a group column for what distinguishes them, or a cohort "
+                   "effect on timing.",
+        ),
+        Assumption(
+            key="independent_units",
+            statement="Units of a cohort end independently (multinomial variation only).",
+            statistic=Statistic(
+                "dispersion",
+                "Pearson chi-square per likelihood cell (1 under multinomial variation)",
+                cohorts.cell_dispersion,
+                sides="greater",
+            ),
+            relaxation=_relaxation(
+                "overdispersion", "units of a cohort share a common influence (Dirichlet-multinomial)",
+                null=0.0, negligible=0.005,
+            ),
+            advice="Counts vary more than multinomial: units of a cohort share something; model it "
+                   "as an effect or use the overdispersed likelihood.",
+        ),
+    ),
+    validate=validate,
+    simulate=simulate,
+    build_model=build_model,
+    observed=cohorts.observed,
+    outcome_names=("y",),
+    covariate="age",
+    figure=figure,
+    derived=derived,
+    demo=demo,
+)
