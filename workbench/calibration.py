@@ -1,0 +1,772 @@
+"""Simulation-based calibration (SBC): does the model as coded tell its own story?
+
+For each replicate: draw parameters from the model's prior, simulate outcomes
+for the same design (distances, cohort sizes) with the recipe's independent
+NumPy simulator, refit the model to the simulated outcomes, and rank each
+generating value among ``L`` near-independent posterior draws. When the
+PyMC model encodes the same story as the simulator and the sampler is
+faithful, every rank is uniform on ``0..L``; a model that codes a variance
+where the story has a standard deviation gives ranks piled at the ends.
+
+Speed comes from compiling once: every process compiles the model, the prior
+draw and the log-likelihood once and reuses them for all its replicates
+(only the outcome data containers change). Replicates run in local worker
+processes or on a Dask distributed cluster; each replicate's seeds derive
+from ``(seed, replicate index)`` alone, so results are identical whatever
+the executor. Finished replicates are appended to a checkpoint (JSON lines)
+in the run folder; rerunning the same call continues where it stopped.
+
+Public API
+----------
+run_calibration(design, data, sims, seed, *, workers=None, cluster=None,
+                folder=None, settings=None, quiet=False) -> CalibrationResult
+load_calibration(folder, sims=None) -> CalibrationResult
+
+References
+----------
+Talts, S., Betancourt, M., Simpson, D., Vehtari, A. and Gelman, A. (2018).
+Validating Bayesian inference algorithms with simulation-based calibration.
+arXiv:1804.06788.
+Modrák, M., Moon, A. H., Kim, S., Bürkner, P., Huurre, N., Faltejsková, K.,
+Gelman, A. and Vehtari, A. (2023). Simulation-based calibration checking for
+Bayesian computation: the choice of test quantities shapes sensitivity.
+Bayesian Analysis (the log-likelihood as a derived test quantity).
+Säilynoja, T., Bürkner, P.-C. and Vehtari, A. (2022). Graphical test for
+discrete uniformity and its applications in goodness-of-fit evaluation and
+multiple sample comparison. Statistics and Computing 32, 32.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import pickle
+import threading
+import time
+import uuid
+import warnings
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, field, replace
+from multiprocessing import get_context
+from pathlib import Path
+from typing import Any, Iterable, Iterator
+
+import numpy as np
+
+from workbench.engine import Settings
+from workbench.errors import ModelFileError, OptionError, OutputError, WorkbenchError
+from workbench.progress import Progress
+from workbench.uniformity import UniformityTest, rank_uniformity
+
+# Ranks are taken among L = 99 thinned draws: L + 1 = 100 has many divisors,
+# so the ECDF test and the rank histogram get exact equal-width bins.
+DEFAULT_RANKS = 99
+# Two chains of 300 draws after 300 tuning steps: on the reference recipe the
+# bulk ESS is about 0.4 per draw, so 600 draws give ~2.5 L effective draws
+# and thinning to L leaves them near-independent (measured over 100 prior draws).
+CALIBRATION_SETTINGS = Settings(draws=300, tune=300, chains=2, cores=1)
+# A fit whose bulk ESS falls below L is run once more with this many times
+# the draws; autocorrelated draws would pile ranks at the ends (Talts et al.
+# 2018, sec. 4.1) and look like a coding error.
+ESS_RETRY_FACTOR = 4
+# A replicate whose worker process dies this many times is recorded as
+# failed instead of being retried again (a replicate that kills its worker
+# every time must not stall the run).
+MAX_WORKER_LOSSES = 3
+# Name of the derived test quantity (Modrák et al. 2023).
+LOG_LIKELIHOOD = "log_likelihood"
+CHECKPOINT = "calibration.jsonl"
+FORMAT = "workbench.calibration/1"
+# Where the replicates' generating values come from.
+SIMULATOR_RECIPE = "recipe"  # the recipe's independent simulator: checks the model code
+SIMULATOR_MODEL = "model"  # the model's own prior predictive: checks the sampler only
+
+
+# --- result -------------------------------------------------------------------
+
+
+@dataclass
+class CalibrationResult:
+    """Ranks of every replicate and the uniformity test of each quantity.
+
+    Attributes
+    ----------
+    sims : int
+        Replicates asked for.
+    L : int
+        Posterior draws each rank is taken among (ranks lie in ``0..L``).
+    ranks : dict of str to ndarray
+        One rank per successful replicate for each quantity: every scalar
+        parameter element (``spread``, ``offset[2]``) and ``log_likelihood``.
+    tests : dict of str to UniformityTest
+        The uniformity test of each quantity's ranks.
+    replicates : list of int
+        Indices of the successful replicates, in the order of ``ranks``.
+    failures : list of dict
+        ``{"index": int, "reason": str}`` for each replicate whose simulation
+        or fit failed, diverged or whose worker died.
+    simulator : str
+        ``"recipe"`` (independent simulator: checks the model code) or
+        ``"model"`` (the model's own prior predictive: checks the sampler only).
+    records : dict of int to dict
+        The checkpoint record of every finished replicate.
+    """
+
+    sims: int
+    L: int
+    ranks: dict[str, np.ndarray]
+    tests: dict[str, UniformityTest]
+    replicates: list[int]
+    failures: list[dict]
+    simulator: str = SIMULATOR_RECIPE
+    records: dict[int, dict] = field(default_factory=dict, repr=False)
+    seconds: float = 0.0
+    folder: str | None = None
+
+    @property
+    def parameters(self) -> dict[str, dict]:
+        """Each quantity's test as a plain dict (``p_value`` first)."""
+        return {name: test.to_dict() for name, test in self.tests.items()}
+
+    @property
+    def checks_model_code(self) -> bool:
+        """True when outcomes came from an independent simulator."""
+        return self.simulator == SIMULATOR_RECIPE
+
+    @property
+    def low_ess(self) -> int:
+        """Successful replicates whose ESS stayed below L even after the retry."""
+        return sum(1 for i in self.replicates if self.records[i].get("min_ess", np.inf) < self.L)
+
+    def to_dict(self) -> dict:
+        """The ``calibration`` section of summary.json."""
+        return {
+            "sims": self.sims,
+            "parameters": self.parameters,
+            "L": self.L,
+            "completed": len(self.replicates),
+            "failed": len(self.failures),
+            "failures": list(self.failures),
+            "low_ess": self.low_ess,
+            "simulator": self.simulator,
+            "checks": "model code" if self.checks_model_code else "sampler only",
+            "ranks": {name: [int(r) for r in values] for name, values in self.ranks.items()},
+            "replicates": list(self.replicates),
+            "seconds": self.seconds,
+        }
+
+
+# --- seeds and fingerprints -----------------------------------------------------
+
+
+def replicate_seeds(seed: int, index: int) -> dict[str, int]:
+    """Seeds of one replicate, from ``(seed, index)`` alone (never from the worker).
+
+    Returns integer seeds for the prior draw, the simulation, the fit, the
+    fit's retry and the thinning.
+    """
+    state = np.random.SeedSequence(int(seed), spawn_key=(int(index),)).generate_state(5)
+    names = ("prior", "simulate", "fit", "refit", "thin")
+    return {name: int(value) for name, value in zip(names, state)}
+
+
+def _data_digest(data) -> str:
+    digest = hashlib.sha256()
+    columns = getattr(data, "columns", None)
+    if isinstance(columns, dict):
+        for name in sorted(columns):
+            values = np.ascontiguousarray(columns[name])
+            digest.update(f"{name}:{values.dtype.str}:{values.shape};".encode())
+            digest.update(values.tobytes())
+        digest.update(json.dumps(getattr(data, "labels", {}), sort_keys=True, default=str).encode())
+    elif hasattr(data, "to_numpy") and hasattr(data, "columns"):
+        import pandas as pd
+
+        digest.update(",".join(map(str, data.columns)).encode())
+        digest.update(pd.util.hash_pandas_object(data, index=True).values.tobytes())
+    else:
+        digest.update(pickle.dumps(data))
+    return digest.hexdigest()
+
+
+def _design_label(design) -> str:
+    label = getattr(design, "label", None)
+    return label() if callable(label) else str(getattr(design, "name", type(design).__name__))
+
+
+def _has_simulator(design) -> bool:
+    if getattr(design, "simulate", None) is None:
+        return False
+    recipe = getattr(design, "recipe", None)
+    return recipe is None or getattr(recipe, "simulate", None) is not None
+
+
+# --- one compiled model per process -----------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Job:
+    """What a worker needs to run any replicate of one calibration."""
+
+    model_key: str
+    design: Any
+    data: Any
+    seed: int
+    draws: int
+    tune: int
+    chains: int
+    cores: int
+    L: int
+    simulator: str
+
+
+class _Compiled:
+    """The model, its prior draw and its log-likelihood, each compiled once."""
+
+    def __init__(self, design, data, simulator: str):
+        from pymc.pytensorf import compile as compile_graph
+
+        from workbench.engine import Sampler
+
+        model = design.build(data)
+        self.design, self.data, self.model = design, data, model
+        self.sampler = Sampler(model)
+        self.free = [rv.name for rv in model.free_RVs]
+        outputs = list(model.free_RVs) + list(model.deterministics)
+        if simulator == SIMULATOR_RECIPE:
+            self.outcomes = {}
+            containers = list(design.observed(data))
+        else:
+            self.outcomes = _outcome_containers(model, self.sampler.data_names)
+            outputs += [model[name] for name in self.outcomes]
+            containers = list(self.outcomes.values())
+        self.output_names = [v.name for v in outputs]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            self.draw, updates = compile_graph([], outputs, random_seed=False, return_updates=True)
+        self.rngs = list(updates)
+        self.containers = containers
+        self.loglik, self.loglik_dtypes = _loglik_function(model, self.free, containers)
+        self.lock = threading.Lock()
+
+    def replicate(self, job: _Job, index: int) -> dict:
+        """Simulate, refit and rank one replicate; failures become a reason."""
+        from pymc.pytensorf import reseed_rngs
+
+        seeds = replicate_seeds(job.seed, index)
+        record: dict[str, Any] = {"index": index, "failed": None}
+        reseed_rngs(self.rngs, seeds["prior"])
+        drawn = dict(zip(self.output_names, self.draw()))
+        truth = {name: np.asarray(drawn[name]) for name in self.free}
+        try:
+            if job.simulator == SIMULATOR_RECIPE:
+                simulated = self.design.simulate(np.random.default_rng(seeds["simulate"]), self.data,
+                                                 drawn)
+                observed = {k: np.asarray(v) for k, v in self.design.observed(simulated).items()}
+            else:
+                observed = {container: np.asarray(drawn[rv]) for rv, container in self.outcomes.items()}
+        except Exception as err:  # the user's simulator: record, never abort the run
+            record["failed"] = f"simulation failed: {type(err).__name__}: {err}"
+            return record
+        settings = Settings(draws=job.draws, tune=job.tune, chains=job.chains, cores=job.cores)
+        for fit_seed in (seeds["fit"], seeds["refit"]):
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    tree = self.sampler.run(fit_seed, settings, observed=observed)
+                posterior = {n: np.asarray(tree["posterior"][n].values) for n in self.free}
+            except Exception as err:  # a sampler error is a failed replicate
+                record["failed"] = f"fit failed: {type(err).__name__}: {err}"
+                return record
+            if not all(np.isfinite(v).all() for v in posterior.values()):
+                record["failed"] = "fit failed: non-finite posterior draws"
+                return record
+            min_ess = _min_ess(posterior)
+            if min_ess >= job.L or fit_seed == seeds["refit"]:
+                break
+            settings = replace(settings, draws=settings.draws * ESS_RETRY_FACTOR)
+        divergences = int(np.asarray(tree["sample_stats"]["diverging"].values).sum())
+        rng = np.random.default_rng(seeds["thin"])
+        total = settings.chains * settings.draws
+        # L evenly spaced draws across the pooled chains, from a random offset.
+        positions = (rng.uniform(0, total / job.L) + np.arange(job.L) * total / job.L).astype(int)
+        ranks = {}
+        thinned = {}
+        for name in self.free:
+            pooled = posterior[name].reshape((total,) + posterior[name].shape[2:])[positions]
+            thinned[name] = pooled
+            for label, true, draws in _elements(name, truth[name], pooled):
+                ranks[label] = _rank(true, draws, rng)
+        true_ll = self._loglik([truth[n] for n in self.free], observed)
+        draws_ll = np.array([self._loglik([thinned[n][k] for n in self.free], observed)
+                             for k in range(job.L)])
+        ranks[LOG_LIKELIHOOD] = _rank(true_ll, draws_ll, rng)
+        record.update(ranks=ranks, divergences=divergences, min_ess=round(float(min_ess), 2),
+                      draws=total)
+        if divergences:
+            record["failed"] = f"{divergences} divergent transitions"
+        return record
+
+    def _loglik(self, values, observed) -> float:
+        args = [np.asarray(v, dtype=d) for v, d in zip(values, self.loglik_dtypes)]
+        args += [np.asarray(observed[c], dtype=d)
+                 for c, d in zip(self.containers, self.loglik_dtypes[len(values):])]
+        value = float(self.loglik(*args))
+        return value if not np.isnan(value) else -np.inf
+
+
+def _outcome_containers(model, data_names) -> dict[str, str]:
+    """Observed variable name -> the pm.Data container holding its values."""
+    from pytensor.compile.sharedvalue import SharedVariable
+    from pytensor.graph.traversal import graph_inputs
+
+    found = {}
+    for rv in model.observed_RVs:
+        value = model.rvs_to_values[rv]
+        shared = [v for v in graph_inputs([value])
+                  if isinstance(v, SharedVariable) and v.name in data_names]
+        if len(shared) != 1:
+            raise ModelFileError(
+                f"calibration without a simulator needs each observed variable's values in one "
+                f"pm.Data container; observed variable '{rv.name}' has {len(shared)}"
+            )
+        found[rv.name] = shared[0].name
+    return found
+
+
+def _loglik_function(model, free: list[str], containers: list[str]):
+    """Compiled log-likelihood of the observed variables at constrained parameter
+    values, with the outcome containers as explicit inputs."""
+    from pymc.model.transform.conditioning import remove_value_transforms
+    from pymc.pytensorf import compile as compile_graph
+
+    plain = remove_value_transforms(model)
+    values = [plain.rvs_to_values[plain[name]] for name in free]
+    shared = [plain[name] for name in containers]
+    inputs = [s.type() for s in shared]
+    logp = plain.logp(vars=plain.observed_RVs, sum=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fn = compile_graph(values + inputs, logp, givens=list(zip(shared, inputs)),
+                           on_unused_input="ignore")
+    return fn, [v.type.dtype for v in values + inputs]
+
+
+def _min_ess(posterior: dict[str, np.ndarray]) -> float:
+    from arviz_stats.base import array_stats
+
+    lowest = np.inf
+    for values in posterior.values():
+        ess = array_stats.ess(values, chain_axis=0, draw_axis=1, method="bulk")
+        lowest = min(lowest, float(np.nanmin(np.asarray(ess))) if np.size(ess) else np.inf)
+    return lowest
+
+
+def _elements(name: str, truth: np.ndarray, draws: np.ndarray):
+    """(label, true value, draws) for each scalar element: ``name`` or ``name[i,j]``."""
+    if truth.ndim == 0:
+        yield name, float(truth), draws
+        return
+    for idx in np.ndindex(truth.shape):
+        yield f"{name}[{','.join(map(str, idx))}]", float(truth[idx]), draws[(slice(None),) + idx]
+
+
+def _rank(true: float, draws: np.ndarray, rng: np.random.Generator) -> int:
+    """Draws below the true value; ties split at random (a uniform rank under the null)."""
+    below = int(np.sum(draws < true))
+    ties = int(np.sum(draws == true))
+    return below + (int(rng.integers(0, ties + 1)) if ties else 0)
+
+
+_COMPILED: dict[str, _Compiled] = {}
+_COMPILED_LOCK = threading.Lock()
+
+
+def _compiled_for(job: _Job) -> _Compiled:
+    """This process's compiled model for the job (compiled on first use)."""
+    with _COMPILED_LOCK:
+        kit = _COMPILED.get(job.model_key)
+        if kit is None:
+            kit = _COMPILED[job.model_key] = _Compiled(job.design, job.data, job.simulator)
+        return kit
+
+
+def _replicate_task(job: _Job, index: int) -> dict:
+    """Run one replicate in this process (the unit of work of every executor)."""
+    kit = _compiled_for(job)
+    # One replicate at a time per compiled model: its random generators are
+    # reseeded per replicate and must not be shared between threads.
+    with kit.lock:
+        return kit.replicate(job, index)
+
+
+# --- executors ---------------------------------------------------------------------
+
+
+def _in_process(job: _Job, todo: list[int]) -> Iterator[dict]:
+    for index in todo:
+        yield _replicate_task(job, index)
+
+
+def _worker_start() -> None:
+    import signal
+
+    # Ctrl-C is the parent's to handle: it keeps the checkpoint consistent
+    # and stops the workers.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    warnings.simplefilter("ignore")
+
+
+def _lost(index: int, losses: int) -> dict:
+    return {"index": index, "failed": f"worker process died {losses} times while running it"}
+
+
+def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
+    """Replicates on local worker processes; a dead worker's replicates are redone."""
+    pending = list(reversed(todo))  # pop() from the end keeps index order
+    losses: dict[int, int] = {}
+    # "spawn" avoids forking a parent that may already run sampler threads.
+    context = get_context("spawn")
+    while pending:
+        pool = ProcessPoolExecutor(workers, mp_context=context, initializer=_worker_start)
+        running: dict[Any, int] = {}
+        broken = False
+        try:
+            while (pending or running) and not broken:
+                # A short queue: a worker's death then costs a retry to few replicates.
+                while pending and len(running) < workers + 1:
+                    index = pending.pop()
+                    running[pool.submit(_replicate_task, job, index)] = index
+                done, _ = wait(running, return_when=FIRST_COMPLETED)
+                for future in sorted(done, key=lambda f: running[f]):
+                    try:
+                        record = future.result()
+                    except BrokenProcessPool:
+                        broken = True
+                        continue
+                    del running[future]
+                    yield record
+        except BaseException:
+            _stop(pool)
+            raise
+        if broken:
+            _stop(pool)
+            for index in sorted(running.values(), reverse=True):
+                losses[index] = losses.get(index, 0) + 1
+                if losses[index] >= MAX_WORKER_LOSSES:
+                    yield _lost(index, losses[index])
+                else:
+                    pending.append(index)
+            pending.sort(reverse=True)
+        else:
+            pool.shutdown(wait=True)
+
+
+def _stop(pool: ProcessPoolExecutor) -> None:
+    """Stop a pool now: cancel what waits and end the worker processes it started."""
+    processes = list(getattr(pool, "_processes", {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        if process.is_alive():
+            process.terminate()
+    for process in processes:
+        process.join(timeout=10)
+
+
+def _dask_pool(job: _Job, todo: list[int], cluster) -> Iterator[dict]:
+    """Replicates on a Dask distributed cluster (a scheduler address, a cluster or a Client).
+
+    The scheduler reruns the tasks of a worker that dies; a replicate that
+    outlives the scheduler's allowed failures is recorded as failed.
+    """
+    from distributed import Client, as_completed
+    from distributed.scheduler import KilledWorker
+
+    if isinstance(cluster, Client):
+        client, own = cluster, False
+    else:
+        address = getattr(cluster, "scheduler_address", cluster)
+        try:
+            client = Client(address, timeout="20s", set_as_default=False)
+        except (OSError, TimeoutError) as err:
+            raise WorkbenchError(
+                f"--cluster: cannot reach a Dask scheduler at {address!r} ({err})"
+            ) from None
+        own = True
+    run = uuid.uuid4().hex[:8]
+    futures = []
+    try:
+        index_of = {}
+        for index in todo:
+            future = client.submit(_replicate_task, job, index, key=f"calibration-{run}-{index}",
+                                   pure=False)
+            index_of[future.key] = index
+            futures.append(future)
+        for future in as_completed(futures):
+            index = index_of[future.key]
+            try:
+                record = future.result()
+            except KilledWorker:
+                record = _lost(index, MAX_WORKER_LOSSES)
+            yield record
+    except BaseException:
+        client.cancel(futures)
+        raise
+    finally:
+        if own:
+            client.close()
+
+
+# --- checkpoint --------------------------------------------------------------------
+
+
+class Checkpoint:
+    """Finished replicates, one JSON line each, after a header line.
+
+    Each line is written whole, flushed and synced before the next replicate
+    is counted, so an interrupted run loses at most the line being written;
+    a half-written last line is dropped when the run resumes.
+    """
+
+    def __init__(self, folder: str | os.PathLike, header: dict):
+        self.path = Path(folder) / CHECKPOINT
+        self.header = header
+        self._file = None
+
+    def open(self) -> dict[int, dict]:
+        """Read finished replicates (refusing another run's file), then open for appending."""
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        records: dict[int, dict] = {}
+        if self.path.exists() and self.path.stat().st_size:
+            found, records, keep = read_checkpoint(self.path)
+            _refuse_other_run(self.path, found, self.header)
+            with open(self.path, "r+b") as f:
+                f.truncate(keep)  # drop a half-written last line
+            self._file = open(self.path, "a", encoding="utf-8")
+        else:
+            self._file = open(self.path, "w", encoding="utf-8")
+            self._write(self.header)
+        return records
+
+    def append(self, record: dict) -> None:
+        self._write(record)
+
+    def _write(self, obj: dict) -> None:
+        self._file.write(json.dumps(obj, separators=(",", ":"), allow_nan=True) + "\n")
+        self._file.flush()
+        os.fsync(self._file.fileno())
+
+    def close(self) -> None:
+        if self._file is not None:
+            self._file.close()
+            self._file = None
+
+
+def read_checkpoint(path) -> tuple[dict, dict[int, dict], int]:
+    """(header, records by index, byte length of the whole lines) of a checkpoint."""
+    raw = Path(path).read_bytes()
+    keep = raw.rfind(b"\n") + 1
+    lines = raw[:keep].splitlines()
+    if not lines:
+        raise OutputError(f"{path}: not a calibration checkpoint (no header line)")
+    try:
+        header = json.loads(lines[0])
+    except ValueError:
+        header = {}
+    if header.get("format") != FORMAT:
+        raise OutputError(f"{path}: not a calibration checkpoint (expected format {FORMAT})")
+    records: dict[int, dict] = {}
+    for line in lines[1:]:
+        try:
+            record = json.loads(line)
+        except ValueError:
+            continue  # only a torn write can leave a bad line; its replicate is redone
+        records.setdefault(int(record["index"]), record)
+    return header, records, keep
+
+
+def _refuse_other_run(path: Path, found: dict, expected: dict) -> None:
+    for key in ("design", "data", "seed", "settings", "L", "simulator"):
+        if found.get(key) != expected.get(key):
+            raise OutputError(
+                f"{path} holds replicates of another calibration ({key}: found "
+                f"{_short(found.get(key))}, this run has {_short(expected.get(key))}); "
+                f"use another folder or delete the file"
+            )
+
+
+def _short(value) -> str:
+    text = json.dumps(value, sort_keys=True) if not isinstance(value, str) else value
+    return text if len(text) <= 40 else text[:16] + "…"
+
+
+# --- summary -----------------------------------------------------------------------
+
+
+def summarise(records: dict[int, dict], sims: int, L: int, simulator: str = SIMULATOR_RECIPE,
+              seconds: float = 0.0, folder: str | None = None) -> CalibrationResult:
+    """Build the result from finished replicate records (indices ``0..sims-1``).
+
+    Replicates that failed are listed with their reason and left out of the
+    ranks; the uniformity test runs on the rest.
+    """
+    finished = {i: r for i, r in records.items() if i < sims}
+    ok = sorted(i for i, r in finished.items() if not r.get("failed"))
+    failures = [{"index": i, "reason": finished[i]["failed"]}
+                for i in sorted(finished) if finished[i].get("failed")]
+    names: list[str] = list(finished[ok[0]]["ranks"]) if ok else []
+    ranks = {name: np.array([finished[i]["ranks"][name] for i in ok], dtype=np.int64) for name in names}
+    tests = {name: rank_uniformity(values, L) for name, values in ranks.items()}
+    return CalibrationResult(sims, L, ranks, tests, ok, failures, simulator, finished, seconds, folder)
+
+
+def load_calibration(folder, sims: int | None = None) -> CalibrationResult:
+    """The result stored in a run folder's checkpoint, without running anything."""
+    path = Path(folder) / CHECKPOINT
+    if not path.exists():
+        raise OutputError(f"{folder}: no calibration checkpoint ({CHECKPOINT}) found")
+    header, records, _ = read_checkpoint(path)
+    sims = sims if sims is not None else (max(records) + 1 if records else 0)
+    return summarise(records, sims, header["L"], header.get("simulator", SIMULATOR_RECIPE),
+                     folder=str(folder))
+
+
+# --- the run -----------------------------------------------------------------------
+
+
+def run_calibration(
+    design,
+    data,
+    sims: int,
+    seed: int,
+    *,
+    workers: int | None = None,
+    cluster=None,
+    folder=None,
+    settings: Settings | None = None,
+    quiet: bool = False,
+    ranks: int = DEFAULT_RANKS,
+) -> CalibrationResult:
+    """Simulation-based calibration of a design on the data's covariates.
+
+    Parameters
+    ----------
+    design : workbench.recipe.Design
+        The model and its independent simulator. When ``design.simulate`` is
+        None, outcomes come from the model's own prior predictive; the result
+        then says it checks the sampler, not the model code.
+    data : workbench.recipe.Dataset
+        Supplies the design (distances, cohort sizes); outcomes are simulated.
+    sims : int
+        Number of replicates.
+    seed : int
+        Every replicate's seeds derive from ``(seed, replicate index)``.
+    workers : int, optional
+        Local worker processes (default: the machine's cores); 1 runs in this
+        process. Ignored when ``cluster`` is given.
+    cluster : str or distributed cluster/Client, optional
+        A Dask scheduler address (``"tcp://host:8786"``) to send replicates to.
+    folder : path, optional
+        Run folder for the checkpoint ``calibration.jsonl``; rerunning the
+        same call continues there, never redoing a finished replicate.
+    settings : workbench.engine.Settings, optional
+        Draws, tuning steps and chains per fit (default
+        :data:`CALIBRATION_SETTINGS`); ``chains * draws`` must be at least ``ranks + 1``.
+    quiet : bool, default False
+        No progress output.
+    ranks : int, default 99
+        L, the number of thinned posterior draws each true value is ranked among.
+
+    Returns
+    -------
+    CalibrationResult
+
+    Raises
+    ------
+    OptionError
+        For a bad number of replicates or settings too small for ``ranks``.
+    OutputError
+        When ``folder`` holds the checkpoint of another calibration.
+
+    References
+    ----------
+    Talts, S., Betancourt, M., Simpson, D., Vehtari, A. and Gelman, A. (2018).
+    Validating Bayesian inference algorithms with simulation-based
+    calibration. arXiv:1804.06788.
+    Modrák, M. et al. (2023). Simulation-based calibration checking for
+    Bayesian computation: the choice of test quantities shapes sensitivity.
+    Bayesian Analysis.
+    """
+    start = time.perf_counter()
+    sims, L = int(sims), int(ranks)
+    if sims < 1:
+        raise OptionError(f"calibration: expected at least 1 replicate; found {sims}")
+    if L < 2:
+        raise OptionError(f"calibration: expected at least 2 ranked draws; found {L}")
+    base = settings or CALIBRATION_SETTINGS
+    if base.chains * base.draws < L + 1:
+        raise OptionError(
+            f"calibration: {base.chains} chains x {base.draws} draws cannot be thinned to "
+            f"{L} near-independent draws; expected at least {L + 1} draws in all"
+        )
+    simulator = SIMULATOR_RECIPE if _has_simulator(design) else SIMULATOR_MODEL
+    local = cluster is None
+    workers = max(1, int(workers if workers is not None else os.cpu_count() or 1)) if local else 0
+    header = {
+        "format": FORMAT,
+        "design": _design_label(design),
+        "data": _data_digest(data),
+        "seed": int(seed),
+        "settings": {"draws": base.draws, "tune": base.tune, "chains": base.chains},
+        "L": L,
+        "simulator": simulator,
+    }
+    model_key = hashlib.sha256(
+        json.dumps([header["design"], header["data"], simulator]).encode()
+    ).hexdigest()
+    # Chains share the cores left over by the other workers; the draws do not
+    # depend on the thread count.
+    cores = max(1, min(base.chains, (os.cpu_count() or 1) // workers)) if workers == 1 else 1
+    job = _Job(model_key, design, data, int(seed), base.draws, base.tune, base.chains, cores, L,
+               simulator)
+
+    checkpoint = Checkpoint(folder, header) if folder is not None else None
+    records = checkpoint.open() if checkpoint else {}
+    try:
+        todo = [i for i in range(sims) if i not in records]
+        if todo and (not local or workers > 1):
+            _check_portable(job)
+        done = sum(1 for i in records if i < sims)
+        failed = sum(1 for i, r in records.items() if i < sims and r.get("failed"))
+        with Progress(sims, "calibration", quiet, done=done, failed=failed) as bar:
+            if not todo:
+                stream: Iterable[dict] = ()
+            elif not local:
+                stream = _dask_pool(job, todo, cluster)
+            elif workers == 1 or len(todo) == 1:
+                stream = _in_process(job, todo)
+            else:
+                stream = _local_pool(job, todo, min(workers, len(todo)))
+            for record in stream:
+                if checkpoint:
+                    checkpoint.append(record)
+                records[record["index"]] = record
+                bar.advance(failed=int(bool(record.get("failed"))))
+    finally:
+        if checkpoint:
+            checkpoint.close()
+    return summarise(records, sims, L, simulator, time.perf_counter() - start,
+                     str(folder) if folder is not None else None)
+
+
+def _check_portable(job: _Job) -> None:
+    """Fail early, with one line, when the design cannot travel to another process."""
+    try:
+        pickle.loads(pickle.dumps(job))
+    except Exception as err:
+        raise OptionError(
+            f"calibration on several processes needs a design that can be rebuilt from its "
+            f"recipe file; found one that cannot ({type(err).__name__}: {err}); use workers=1"
+        ) from None
