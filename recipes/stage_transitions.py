@@ -1,0 +1,669 @@
+"""stage-transitions: units move through ordered stages until an end stage holds them.
+
+Story. Every period each unit in a transient stage i moves to stage j with
+probability ``P[i, j]`` (staying is a move to i), independently of the other
+units and of its past (a discrete-time Markov chain). End stages (option
+``absorbing``) hold their units for good. With ``moves=forward`` a unit can
+stay, move to a later stage in the ``stages`` order, or move to any end stage;
+with ``moves=any`` every move is possible. Each transient row of P has a
+uniform Dirichlet prior (normalised gamma weights ``transition_weight``).
+
+Data. The table counts the units of each cohort in each stage at consecutive
+periods; every unit is counted in exactly one stage each period.
+
+Likelihood (a documented approximation). Given the counts ``n_{t-1}`` of a
+cohort at one period, the exact law of its counts at the next is a sum of
+independent multinomials, one per source stage (no closed form). We use one
+multinomial with the same mean:
+
+    n_t | n_{t-1} ~ Multinomial(N, (n_{t-1} / N) @ P).
+
+Its means are exact and its covariance exceeds the exact one by the positive
+semi-definite ``sum_i n_i (P_i - pbar)(P_i - pbar)^T``, so it errs towards
+wider, never narrower, uncertainty; it is exact when all units of a cohort sit
+in one stage at the previous period. The first period of each cohort is
+conditioned on, not modelled.
+
+Columns: ``cohort``, ``period`` (whole numbers, consecutive within a cohort),
+one count column per stage (optional ``group``). Options: ``stages``,
+``absorbing``, ``moves``, ``pooling``, ``centred``.
+
+References
+----------
+Kemeny, J. G. and Snell, J. L. (1960). Finite Markov Chains. Van Nostrand,
+chapter III (absorbing chains, the fundamental matrix N = (I - Q)^-1 and the
+absorption probabilities B = N R).
+Kalbfleisch, J. D. and Lawless, J. F. (1984). Least-squares estimation of
+transition probabilities from aggregate data. Canadian Journal of Statistics
+12(3), 169-182 (Markov chains fitted to aggregate stage counts).
+"""
+
+from __future__ import annotations
+
+from functools import partial
+
+import numpy as np
+import pandas as pd
+
+from workbench import tables
+from workbench.cohorts import CENTRED, EPS
+from workbench.errors import DataError, OptionError
+from workbench.recipe import (
+    Assumption,
+    Column,
+    Dataset,
+    DemoScenario,
+    Option,
+    Parameter,
+    Recipe,
+    Relaxation,
+    Statistic,
+)
+from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend, standardised
+
+NAME = "stage-transitions"
+RESERVED = {"cohort", "period", "group"}
+
+
+def _name_list(minimum: int):
+    def parse(text: str) -> tuple[str, ...]:
+        names = tuple(part.strip() for part in str(text).split(",") if part.strip())
+        if len(names) < minimum:
+            raise ValueError(f"needs at least {minimum} column name(s) separated by commas")
+        if len(set(names)) != len(names):
+            raise ValueError("names a stage twice")
+        if RESERVED.intersection(names):
+            raise ValueError(f"'{sorted(RESERVED.intersection(names))[0]}' is not a stage column")
+        return names
+
+    return parse
+
+
+STAGES = Option("stages", "the stage count columns in their order, comma separated (at least two)",
+                parse=_name_list(2))
+ABSORBING = Option("absorbing", "the end stages among 'stages', comma separated (at least one)",
+                   parse=_name_list(1))
+MOVES = Option(
+    "moves",
+    "forward (stay, move to a later stage or to an end stage) or any (every move possible)",
+    default="forward",
+    choices=("forward", "any"),
+)
+POOLING = Option(
+    "pooling",
+    "how groups share the transition probabilities: none, partial or complete",
+    default="auto",
+    choices=("auto", "none", "partial", "complete"),
+)
+
+
+# --- validation ------------------------------------------------------------------------
+
+
+def allowed_moves(stages, absorbing, moves: str) -> np.ndarray:
+    """Boolean matrix (from, to) of the moves the chain allows."""
+    s = len(stages)
+    end = np.array([name in absorbing for name in stages])
+    allowed = np.ones((s, s), dtype=bool) if moves == "any" else (
+        np.triu(np.ones((s, s), dtype=bool)) | end[None, :])
+    allowed[end] = np.eye(s, dtype=bool)[end]
+    return allowed
+
+
+def validate(table: pd.DataFrame, options: dict) -> Dataset:
+    """Check the table: consecutive periods, constant totals, end stages never shrink."""
+    stages, absorbing = list(options["stages"]), list(options["absorbing"])
+    unknown = [a for a in absorbing if a not in stages]
+    if unknown:
+        raise OptionError(f"option 'absorbing': expected names among stages {', '.join(stages)}; "
+                          f"found {unknown[0]!r}")
+    if len(absorbing) == len(stages):
+        raise OptionError("option 'absorbing': expected at least one stage that is not an end stage; "
+                          "found every stage listed")
+    tables.require_columns(table, ["cohort", "period", *stages], NAME)
+    cohort, cohort_labels = tables.label_column(table, "cohort")
+    period = tables.numeric_column(table, "period")
+    frac = np.flatnonzero(period != np.round(period))
+    if frac.size:
+        i = int(frac[0])
+        raise DataError(f"column 'period' row {i + 1}: expected a whole number; found {period[i]:g}")
+    counts = np.column_stack([tables.count_column(table, name) for name in stages])
+    if "group" in table.columns:
+        group, group_labels = tables.label_column(table, "group")
+    else:
+        group, group_labels = np.zeros(len(table), dtype=np.int64), ["all"]
+
+    order = np.lexsort((period, cohort))
+    c, t, n, g = cohort[order], period[order].astype(np.int64), counts[order], group[order]
+    same = c[1:] == c[:-1]
+    where = lambda j: int(order[j]) + 1  # noqa: E731  (input row number of sorted row j)
+    for j in np.flatnonzero(same):
+        label = cohort_labels[c[j]]
+        if t[j + 1] == t[j]:
+            raise DataError(f"column 'period' row {where(j + 1)}: cohort '{label}' already has period "
+                            f"{t[j]} in row {where(j)}; expected one row per cohort and period")
+        if t[j + 1] != t[j] + 1:
+            raise DataError(f"column 'period' row {where(j + 1)}: cohort '{label}' jumps from period "
+                            f"{t[j]} (row {where(j)}) to {t[j + 1]}; expected consecutive periods")
+        if g[j + 1] != g[j]:
+            raise DataError(f"column 'group' row {where(j + 1)}: {group_labels[g[j + 1]]!r} differs from "
+                            f"{group_labels[g[j]]!r} in row {where(j)}; expected one group per cohort")
+        if n[j + 1].sum() != n[j].sum():
+            raise DataError(f"row {where(j + 1)}: stages sum to {n[j + 1].sum()} but to {n[j].sum()} in "
+                            f"row {where(j)} of cohort '{label}'; expected every unit counted in one "
+                            f"stage every period")
+        for s, name in enumerate(stages):
+            if name in absorbing and n[j + 1, s] < n[j, s]:
+                raise DataError(f"column '{name}' row {where(j + 1)}: {n[j + 1, s]} < {n[j, s]} in the "
+                                f"previous period (row {where(j)}); an end stage never loses units")
+    empty = np.flatnonzero(n.sum(axis=1) == 0)
+    if empty.size:
+        raise DataError(f"row {where(int(empty[0]))}: expected at least one unit in some stage; found none")
+    if not same.any():
+        raise DataError("column 'period': expected at least one cohort seen in two consecutive periods; "
+                        "found none")
+    tables.check_size(len(order), NAME)
+
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = ~same
+    start = np.flatnonzero(first)
+    age = t - np.repeat(t[start], np.diff(np.append(start, len(order))))
+    step = np.flatnonzero(~first)  # rows that have a previous period
+    previous_period = t[step - 1].astype(float)
+    spread = previous_period.std()
+    columns = {"cohort": c, "period": t, "group": g, "age": age}
+    for s, name in enumerate(stages):
+        columns[name] = n[:, s]
+    data = Dataset(columns, labels={"cohort": cohort_labels, "group": group_labels},
+                   source_rows=[[int(i)] for i in order])
+    pooling = options.get("pooling", "auto")
+    if pooling == "auto":
+        pooling = "partial" if len(group_labels) > 1 else "complete"
+    if pooling in {"none", "partial"} and len(group_labels) < 2:
+        raise DataError(f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
+                        f"found {len(group_labels)}")
+    data.extra.update(
+        stages=stages,
+        absorbing=np.array([name in absorbing for name in stages]),
+        allowed=allowed_moves(stages, absorbing, options.get("moves", "forward")),
+        pooling=pooling,
+        step=step,
+        # Standardised period of each move, for the drift relaxation.
+        drift_x=(previous_period - previous_period.mean()) / (spread if spread > 0 else 1.0),
+    )
+    return data
+
+
+def stage_counts(data: Dataset) -> np.ndarray:
+    """Counts per row and stage (rows, S)."""
+    return np.column_stack([data[name] for name in data.extra["stages"]])
+
+
+def observed(data: Dataset) -> dict:
+    """The containers: counts after each move and the counts before it."""
+    n = stage_counts(data)
+    step = data.extra["step"]
+    return {"counts": n[step], "previous": n[step - 1]}
+
+
+# --- transition matrices ------------------------------------------------------------------
+
+
+def move_labels(data: Dataset) -> list[str]:
+    stages, allowed = data.extra["stages"], data.extra["allowed"]
+    transient = ~data.extra["absorbing"]
+    return [f"{stages[i]}>{stages[j]}" for i, j in zip(*np.nonzero(allowed & transient[:, None]))]
+
+
+def _matrix_from_weights(data: Dataset, weight):
+    """Row-normalised transition matrices (..., S, S) from weights of the allowed moves."""
+    import pytensor.tensor as pt
+
+    allowed, end = data.extra["allowed"], data.extra["absorbing"]
+    rows, cols = np.nonzero(allowed & ~end[:, None])
+    s = len(end)
+    lead = tuple(weight.shape[:-1]) if weight.ndim > 1 else ()
+    m = pt.zeros((*lead, s, s))
+    m = pt.set_subtensor(m[..., rows, cols], weight)
+    m = pt.set_subtensor(m[..., np.flatnonzero(end), np.flatnonzero(end)], 1.0)
+    return m / m.sum(axis=-1, keepdims=True)
+
+
+def transition_matrices(data: Dataset, options: dict, prior):
+    """Transition matrix of each group, pooled as ``pooling`` says; adds ``transition_group``."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    pooling = data.extra["pooling"]
+    n_groups = len(data.labels["group"])
+    allowed, end = data.extra["allowed"], data.extra["absorbing"]
+    dims = ("group", "from", "to")
+    if pooling == "none":
+        weight = prior("transition_weight", dims=("group", "move"))
+        per_group = _matrix_from_weights(data, weight)
+    else:
+        common = pm.Deterministic("transition", _matrix_from_weights(data, prior("transition_weight",
+                                                                                   dims="move")),
+                                  dims=("from", "to"))
+        if pooling == "complete":
+            per_group = pt.broadcast_to(common, (n_groups, *common.shape))
+        else:
+            spread = prior("transition_sd")  # sd of log move probabilities across groups
+            rows, cols = np.nonzero(allowed & ~end[:, None])
+            log_common = pt.log(common[rows, cols])
+            if options.get("centred"):
+                log_w = pm.Normal("log_transition_group", log_common, spread, dims=("group", "move"))
+            else:
+                z = pm.Normal("transition_offset", 0.0, 1.0, dims=("group", "move"))
+                log_w = log_common + spread * z
+            per_group = _matrix_from_weights(data, pt.exp(log_w))
+    return pm.Deterministic("transition_group", per_group, dims=dims)
+
+
+def _with_drift(data: Dataset, matrices, drift):
+    """Per-move matrices whose stay probabilities scale by exp(drift * standardised period)."""
+    import pytensor.tensor as pt
+
+    transient = (~data.extra["absorbing"]).astype(float)
+    f = pt.exp(drift * data.extra["drift_x"])[:, None, None]
+    boost = matrices * np.eye(len(transient))[None] * transient[None, :, None] * (f - 1.0)
+    m = matrices + boost
+    return m / m.sum(axis=-1, keepdims=True)
+
+
+def _with_dormant(data: Dataset, matrices, dormant, start, previous_age, cohort_of_step):
+    """Visible one-step matrices when transient units may fall silent (dormant) for good.
+
+    A dormant unit stays recorded in the stage where it fell silent. The
+    dormant share of each stage is forecast from the cohort's first period by
+    the augmented chain; the previous counts are split by that share.
+    """
+    import pytensor.tensor as pt
+
+    end = data.extra["absorbing"]
+    s = len(end)
+    transient = np.flatnonzero(~end)
+    t = len(transient)
+    cohort_group = _cohort_group(data)
+    visible = matrices[cohort_group]  # (C, S, S)
+    moving = (~end)[None, :, None]  # transient source rows
+    active = visible + dormant * moving * (np.eye(s)[None] - visible)
+    c = visible.shape[0]
+    aug = pt.zeros((c, s + t, s + t))
+    aug = pt.set_subtensor(aug[:, :s, :s], (1.0 - dormant) * visible
+                           + np.eye(s)[None] * end[None, :, None] * dormant)
+    aug = pt.set_subtensor(aug[:, transient, s + np.arange(t)], dormant)
+    aug = pt.set_subtensor(aug[:, s + np.arange(t), s + np.arange(t)], 1.0)
+    share = pt.concatenate([start / start.sum(axis=-1, keepdims=True), pt.zeros((c, t))], axis=-1)
+    forecasts = [share]
+    for _ in range(int(previous_age.max())):
+        share = (share[:, :, None] * aug).sum(axis=1)
+        forecasts.append(share)
+    forecast = pt.stack(forecasts)[previous_age, cohort_of_step]  # (R, S + T)
+    awake = forecast[:, transient] / pt.maximum(forecast[:, transient] + forecast[:, s:], EPS)
+    keep = pt.ones((forecast.shape[0], s))
+    keep = pt.set_subtensor(keep[:, transient], awake)
+    per_step = active[cohort_of_step]
+    return keep[:, :, None] * per_step + (1.0 - keep)[:, :, None] * np.eye(s)[None]
+
+
+def _cohort_group(data: Dataset) -> np.ndarray:
+    out = np.zeros(len(data.labels["cohort"]), dtype=np.int64)
+    out[data["cohort"]] = data["group"]
+    return out
+
+
+# --- the story in PyMC ------------------------------------------------------------------------
+
+
+def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
+    """The PyMC model; ``relax`` names one relaxation parameter to add."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    step = data.extra["step"]
+    values = observed(data)
+    coords = {"step": np.arange(step.size), "stage": data.extra["stages"], "from": data.extra["stages"],
+              "to": data.extra["stages"], "group": data.labels["group"], "move": move_labels(data),
+              "cohort": data.labels["cohort"]}
+    with pm.Model(coords=coords) as model:
+        counts = pm.Data("counts", values["counts"], dims=("step", "stage"))
+        previous = pm.Data("previous", values["previous"], dims=("step", "stage"))
+        matrices = transition_matrices(data, options, prior)
+        per_step = matrices[data["group"][step]]
+        if relax == "stay_drift":
+            per_step = _with_drift(data, per_step, prior("stay_drift"))
+        elif relax == "dormant":
+            cohort_of_step = data["cohort"][step]
+            first_step = np.unique(cohort_of_step, return_index=True)
+            start = pt.zeros((len(data.labels["cohort"]), len(data.extra["stages"])))
+            start = pt.set_subtensor(start[first_step[0]], previous[first_step[1]])
+            start = pt.set_subtensor(start[:, 0], start[:, 0] + (start.sum(axis=-1) == 0))
+            per_step = _with_dormant(data, matrices, prior("dormant"), start,
+                                     data["age"][step - 1], cohort_of_step)
+        total = previous.sum(axis=-1, keepdims=True)
+        p = ((previous / total)[:, :, None] * per_step).sum(axis=1)
+        p = pt.clip(p, EPS, 1.0)
+        p = pm.Deterministic("expected", p / p.sum(axis=-1, keepdims=True), dims=("step", "stage"))
+        n = total[:, 0]
+        if relax == "overdispersion":
+            rho = prior("overdispersion")
+            kappa = 1.0 / pt.clip(rho, EPS, 1.0 - EPS) - 1.0
+            pm.DirichletMultinomial("y", n=n, a=p * kappa, observed=counts, dims=("step", "stage"))
+        else:
+            pm.Multinomial("y", n=n, p=p, observed=counts, dims=("step", "stage"))
+    return model
+
+
+# --- the story in NumPy -------------------------------------------------------------------------
+
+
+def _matrices_of(data: Dataset, params: dict) -> np.ndarray:
+    n_groups = len(data.labels["group"])
+    if "transition_group" in params:
+        return np.asarray(params["transition_group"], dtype=float).reshape(n_groups, *data.extra["allowed"].shape)
+    m = np.asarray(params["transition"], dtype=float)
+    return np.broadcast_to(m, (n_groups, *m.shape))
+
+
+def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dict) -> Dataset:
+    """Move every unit of every cohort period by period, from the cohort's first counts.
+
+    The units in one stage move independently, so their destinations are one
+    multinomial draw per source stage. ``params`` holds ``transition`` (or
+    ``transition_group``) and may carry ``stay_drift``, ``dormant`` and
+    ``overdispersion`` to plant faults: the stay probability scaled by
+    exp(drift * standardised period), a per-period chance that a transient
+    unit falls silent in its stage for good, and per-period move
+    probabilities shared by a cohort's units (Dirichlet with concentration
+    1 / overdispersion - 1).
+    """
+    matrices = _matrices_of(data, params)
+    drift = float(params.get("stay_drift", 0.0))
+    dormant = float(params.get("dormant", 0.0))
+    rho = float(params.get("overdispersion", 0.0))
+    end = data.extra["absorbing"]
+    s = len(end)
+    n = stage_counts(data).copy()
+    step_of_row = {int(r): j for j, r in enumerate(data.extra["step"])}
+    silent = np.zeros(s, dtype=np.int64)
+    for row in range(data.rows):
+        if row not in step_of_row:
+            silent[:] = 0  # a cohort's first period: everyone active
+            continue
+        m = matrices[data["group"][row]].copy()
+        if drift:
+            f = np.exp(drift * data.extra["drift_x"][step_of_row[row]])
+            m[~end, :] *= np.where(np.eye(s, dtype=bool)[~end], f, 1.0)
+            m /= m.sum(axis=1, keepdims=True)
+        nxt = np.zeros(s, dtype=np.int64)
+        for i in range(s):
+            movers = n[row - 1, i] - silent[i]
+            if end[i]:
+                nxt[i] += n[row - 1, i]
+                continue
+            fall = rng.binomial(movers, dormant) if dormant > 0 else 0
+            silent[i] += fall
+            nxt[i] += silent[i]
+            p = m[i]
+            if rho > 0:
+                p = rng.dirichlet(np.maximum(p * (1.0 / rho - 1.0), EPS))
+            nxt += rng.multinomial(movers - fall, p / p.sum())
+        n[row] = nxt
+    return data.replace(**{name: n[:, j] for j, name in enumerate(data.extra["stages"])})
+
+
+# --- absorption --------------------------------------------------------------------------------------
+
+
+def absorption_shares(transition: np.ndarray, absorbing: np.ndarray) -> np.ndarray:
+    """Probability of ending in each end stage from each transient stage (..., T, A).
+
+    Solves (I - Q) B = R for every leading index: B = N R with the
+    fundamental matrix N = (I - Q)^-1 (Kemeny and Snell 1960, III.3).
+    """
+    transition = np.asarray(transition, dtype=float)
+    transient = ~np.asarray(absorbing)
+    q = transition[..., transient, :][..., :, transient]
+    r = transition[..., transient, :][..., :, ~transient]
+    eye = np.eye(q.shape[-1])
+    return np.linalg.solve(eye - q, r)
+
+
+def derived(data: Dataset, options: dict, posterior: dict) -> dict:
+    """Long-run absorption shares from each transient stage and for the cohorts' start mix."""
+    stages = data.extra["stages"]
+    end = data.extra["absorbing"]
+    transient_names = [s for s, e in zip(stages, end) if not e]
+    end_names = [s for s, e in zip(stages, end) if e]
+    start = stage_counts(data)[np.setdiff1d(np.arange(data.rows), data.extra["step"])]
+    if "transition" in posterior:
+        matrices = {"": (np.asarray(posterior["transition"], dtype=float), start.sum(axis=0))}
+    else:
+        tg = np.asarray(posterior["transition_group"], dtype=float)
+        first_group = data["group"][np.setdiff1d(np.arange(data.rows), data.extra["step"])]
+        matrices = {f" ({label})": (tg[:, g], start[first_group == g].sum(axis=0))
+                    for g, label in enumerate(data.labels["group"])}
+    out = {}
+    for suffix, (m, mix) in matrices.items():
+        b = absorption_shares(m, end)
+        mix = mix / mix.sum()
+        for a, name in enumerate(end_names):
+            for i, source in enumerate(transient_names):
+                out[f"ends in {name} from {source}{suffix}"] = b[:, i, a]
+            out[f"ends in {name}, cohorts' start mix{suffix}"] = (
+                b[:, :, a] @ mix[~end] + mix[end][a])
+    return out
+
+
+# --- targeted statistics ------------------------------------------------------------------------------
+
+
+def _moments(data: Dataset, draws: dict):
+    p = np.asarray(draws["expected"], dtype=float)
+    n = observed(data)["previous"].sum(axis=1)[:, None]
+    return n * p, n * p * (1 - p), p
+
+
+def stuck_excess(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Standardised excess of units still in transient stages at the oldest quarter of moves."""
+    _, _, p = _moments(data, draws)
+    transient = ~data.extra["absorbing"]
+    n = observed(data)["previous"].sum(axis=1)
+    q = p[..., transient].sum(axis=-1)
+    y = np.asarray(outcomes["y"], dtype=float)[..., transient].sum(axis=-1)
+    return nearest_shortfall(y, n * q, n * q * (1 - q), -data["age"][data.extra["step"]])
+
+
+def period_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Slope of standardised residuals of transient-stage counts on period."""
+    mean, var, _ = _moments(data, draws)
+    transient = ~data.extra["absorbing"]
+    y = np.asarray(outcomes["y"], dtype=float)[..., transient]
+    s = mean.shape[0]
+    x = np.repeat(data["period"][data.extra["step"]], transient.sum()).astype(float)
+    return residual_trend(y.reshape(s, -1), mean[..., transient].reshape(s, -1),
+                          var[..., transient].reshape(s, -1), x)
+
+
+def _reachable(data: Dataset) -> np.ndarray:
+    previous = observed(data)["previous"]
+    return ((previous > 0).astype(int) @ data.extra["allowed"].astype(int)) > 0
+
+
+def dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Pearson chi-square per reachable (move, stage) cell (1 under multinomial variation)."""
+    mean, var, _ = _moments(data, draws)
+    mask = _reachable(data)
+    y = np.asarray(outcomes["y"], dtype=float)
+    return pearson_dispersion(y[:, mask], mean[:, mask], var[:, mask])
+
+
+# --- figure -------------------------------------------------------------------------------------------
+
+
+def figure(data: Dataset, options: dict, posterior: dict, predictive: dict, draws: int = 200):
+    """Stacked stage shares by cohort age: observed (pooled over cohorts) against the fitted chain."""
+    import matplotlib.pyplot as plt
+
+    from workbench.report.plots import INK
+
+    stages = data.extra["stages"]
+    n = stage_counts(data).astype(float)
+    age = data["age"]
+    first = np.setdiff1d(np.arange(data.rows), data.extra["step"])
+    ages = np.arange(age.max() + 1)
+    tg = np.asarray(posterior["transition_group"], dtype=float)
+    pick = np.linspace(0, tg.shape[0] - 1, min(draws, tg.shape[0])).astype(int)
+    tg = tg[pick]
+    fitted = np.zeros((len(pick), ages.size, len(stages)))
+    observed_mix = np.zeros((ages.size, len(stages)))
+    for row in first:
+        c = data["cohort"][row]
+        rows = np.flatnonzero(data["cohort"] == c)
+        share = np.broadcast_to(n[row] / n[row].sum(), (len(pick), len(stages)))
+        m = tg[:, data["group"][row]]
+        for a in range(age[rows].max() + 1):
+            fitted[:, a] += n[row].sum() * share
+            share = np.einsum("ds,dst->dt", share, m)
+        observed_mix[age[rows]] += n[rows]
+    fitted /= fitted.sum(axis=-1, keepdims=True)
+    observed_mix /= observed_mix.sum(axis=-1, keepdims=True)
+    lo, mid, hi = np.percentile(np.cumsum(fitted, axis=-1), [5, 50, 95], axis=0)
+    stacked = np.cumsum(observed_mix, axis=-1)
+    tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.1, 0.9, len(stages))]
+    fig, ax = plt.subplots(figsize=(6.4, 3.8))
+    for j, name in enumerate(stages[:-1]):
+        ax.fill_between(ages, lo[:, j], hi[:, j], color=tones[j], alpha=0.3, lw=0)
+        ax.plot(ages, mid[:, j], color=tones[j], lw=1.6, label=f"up to {name} (fitted)")
+        ax.plot(ages, stacked[:, j], "o", mfc="none", color=tones[j], ms=5)
+    ax.plot([], [], "o", mfc="none", color=INK, label="observed (all cohorts)")
+    ax.set_ylim(0, 1.02)
+    ax.set_xlabel("periods since the cohort's first period")
+    ax.set_ylabel("share of units (stacked by stage)")
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.legend(fontsize=8, frameon=False, loc="upper left", bbox_to_anchor=(1.0, 1.0))
+    fig.tight_layout()
+    return fig
+
+
+# --- demo scenario --------------------------------------------------------------------------------------
+
+# Invented: volunteers apply, train, and end certified or leave.
+DEMO_STAGES = ("applied", "training", "certified", "left")
+DEMO_TRUTH = {
+    "transition": [
+        [0.45, 0.40, 0.00, 0.15],
+        [0.00, 0.70, 0.20, 0.10],
+        [0.00, 0.00, 1.00, 0.00],
+        [0.00, 0.00, 0.00, 1.00],
+    ]
+}
+
+
+def demo(rng: np.random.Generator) -> DemoScenario:
+    """A volunteer training programme: monthly intakes followed month by month."""
+    rows = []
+    for intake in range(12):
+        months = 12 - intake  # later intakes are followed for fewer months so far
+        size = int(rng.integers(40, 90))
+        for month in range(intake, intake + months + 1):
+            rows.append({"cohort": f"intake-{intake + 1:02d}", "period": month,
+                         "applied": size, "training": 0,
+                         "certified": 0, "left": 0})
+    options = {"stages": ",".join(DEMO_STAGES), "absorbing": "certified,left"}
+    design_options = RECIPE.read_options(options)
+    data = validate(pd.DataFrame(rows), design_options)
+    simulated = simulate(rng, data, {"transition": np.array(DEMO_TRUTH["transition"])}, design_options)
+    table = simulated.to_frame()[["cohort", "period", *DEMO_STAGES]]
+    b = absorption_shares(np.array(DEMO_TRUTH["transition"]), data.extra["absorbing"])
+    return DemoScenario(
+        title="Volunteer training programme",
+        story=("A rescue service takes a monthly intake of volunteer applicants; each month an "
+               "applicant may start training or leave, a trainee may certify or leave. Where do "
+               f"applicants end up in the long run? (true: {b[0, 0]:.0%} certified, "
+               f"{b[0, 1]:.0%} leave)"),
+        table=table,
+        options=options,
+        truth={**DEMO_TRUTH, "certified_from_applied": float(b[0, 0]), "left_from_applied": float(b[0, 1])},
+    )
+
+
+# --- assumptions ---------------------------------------------------------------------------------------------
+
+
+def _relaxation(parameter, meaning, null, negligible):
+    return Relaxation(parameter=parameter, meaning=meaning, build=partial(build_model, relax=parameter),
+                      null=null, negligible=negligible)
+
+
+RECIPE = Recipe(
+    name=NAME,
+    summary="Units move through ordered stages each period until an end stage holds them.",
+    columns=(
+        Column("cohort", "label of the cohort (units that entered together)"),
+        Column("period", "period number (whole, consecutive within a cohort)"),
+        Column("<stage>", "one column per stage named in 'stages': units in that stage then"),
+        Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
+    ),
+    options=(STAGES, ABSORBING, MOVES, POOLING, CENTRED),
+    parameters=(
+        # Gamma(1, 1) weights normalised per row: a uniform Dirichlet over the
+        # allowed moves of each transient stage.
+        Parameter("transition_weight", "unnormalised weight of each allowed move", "gamma(1,1)"),
+        Parameter("transition_sd", "sd of log move probabilities across groups (partial pooling)",
+                  "halfnormal(0.5)"),
+        # Relaxation parameters (only present in the expanded models).
+        Parameter("dormant", "per-period chance that a transient unit falls silent in its stage",
+                  "beta(1,20)"),
+        Parameter("stay_drift", "change of log stay weight per sd of period", "normal(0,0.5)"),
+        Parameter("overdispersion", "correlation of units' moves within a cohort and period",
+                  "beta(1,30)"),
+    ),
+    assumptions=(
+        Assumption(
+            key="no_missing_exit",
+            statement="Every way a unit leaves is a modelled stage (nobody silently stops moving).",
+            statistic=Statistic(
+                "stuck_excess",
+                "standardised excess of units in transient stages at the oldest quarter of moves",
+                stuck_excess,
+                sides="greater",
+            ),
+            relaxation=_relaxation("dormant", "transient units may fall silent in their stage for good",
+                                   null=0.0, negligible=0.01),
+            advice="Units stop moving without reaching an end stage: add the missing exit as an end "
+                   "stage (e.g. 'inactive') or record when units are lost to follow-up.",
+        ),
+        Assumption(
+            key="time_homogeneity",
+            statement="Transition probabilities do not drift with period.",
+            statistic=Statistic("period_trend", "slope of transient-stage residuals on period",
+                                period_trend),
+            relaxation=_relaxation("stay_drift", "the stay probabilities may drift with period",
+                                   null=0.0, negligible=0.05),
+            advice="The chain changes over time: split the table into eras (a group column) or "
+                   "let the probabilities depend on period.",
+        ),
+        Assumption(
+            key="independent_units",
+            statement="Units move independently of each other (multinomial variation only).",
+            statistic=Statistic("dispersion",
+                                "Pearson chi-square per reachable cell (at most 1 under the model)",
+                                dispersion, sides="greater"),
+            relaxation=_relaxation("overdispersion", "units of a cohort move together (Dirichlet-multinomial)",
+                                   null=0.0, negligible=0.005),
+            advice="Counts vary more than multinomial: units move in batches; model a cohort-period "
+                   "effect or use the overdispersed likelihood.",
+        ),
+    ),
+    validate=validate,
+    simulate=simulate,
+    build_model=build_model,
+    observed=observed,
+    outcome_names=("y",),
+    covariate="period",
+    figure=figure,
+    derived=derived,
+    demo=demo,
+)
