@@ -277,6 +277,40 @@ def _relaxation(parameter, meaning, null, negligible):
     )
 
 
+# --- report figure and demo scenario -------------------------------------------
+def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
+    """Success rate by distance: observed against the posterior predictive band."""
+    from workbench.report import plots
+
+    rate = predictive["y"] / data["attempts"]
+    fig = plots.predictive_by_covariate(
+        data["distance"], data["successes"] / data["attempts"], None, rate,
+        "distance", "share of attempts that succeed")
+    return fig
+
+
+def demo(rng: np.random.Generator):
+    """Seed-pod launcher: an invented field-robot scenario with known spread."""
+    from workbench.recipe import DemoScenario
+
+    truth = {"spread": 0.021}
+    clearance = 0.35  # metres: half the width of a planting gap
+    distance = np.array([1.0, 1.5, 2, 3, 4, 5, 6, 8, 10, 12, 14, 16, 18, 20])
+    attempts = rng.integers(120, 400, size=distance.size)
+    base = validate(pd.DataFrame({"distance": distance, "attempts": attempts,
+                                  "successes": np.zeros_like(attempts)}), {})
+    sim = simulate(rng, base, truth, {"clearance": clearance})
+    table = pd.DataFrame({"distance": distance, "attempts": attempts, "successes": sim["successes"]})
+    return DemoScenario(
+        title="Seed-pod launcher trials",
+        story=("A reforestation drone launches seed pods at planting gaps 0.7 m wide from "
+               "1 to 20 m away; a pod lands when its sideways angle error stays within the gap."),
+        table=table,
+        options={"clearance": str(clearance)},
+        truth=truth,
+    )
+
+
 RECIPE = Recipe(
     name=NAME,
     summary="Attempts succeed when a normal aiming error stays within a geometric tolerance.",
@@ -357,4 +391,6 @@ RECIPE = Recipe(
     observed=observed,
     outcome_names=("y",),
     covariate="distance",
+    figure=figure,
+    demo=demo,
 )

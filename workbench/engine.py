@@ -10,6 +10,7 @@ posterior_predictive and observed_data.
 
 from __future__ import annotations
 
+import logging
 import os
 import time
 import warnings
@@ -20,6 +21,11 @@ import numpy as np
 import xarray as xr
 
 from workbench.errors import WorkbenchError
+
+
+# PyMC announces every sampling step on its logger; the workbench reports
+# progress itself.
+logging.getLogger("pymc").setLevel(logging.WARNING)
 
 
 @dataclass(frozen=True)
@@ -110,13 +116,13 @@ def _flatten(da: xr.DataArray) -> np.ndarray:
 
 def _observed_data(model) -> xr.Dataset:
     """The observed values of every observed variable, with the model's dims."""
+    from pymc.backends.arviz import find_observations
+
     out = {}
-    for rv in model.observed_RVs:
-        value = model.rvs_to_values[rv]
-        data = value.get_value() if hasattr(value, "get_value") else value.data
-        dims = model.named_vars_to_dims.get(rv.name)
-        dims = tuple(dims) if dims else tuple(f"{rv.name}_dim_{i}" for i in range(np.ndim(data)))
-        out[rv.name] = xr.DataArray(np.asarray(data), dims=dims)
+    for name, data in find_observations(model).items():
+        dims = model.named_vars_to_dims.get(name)
+        dims = tuple(dims) if dims else tuple(f"{name}_dim_{i}" for i in range(np.ndim(data)))
+        out[name] = xr.DataArray(np.asarray(data), dims=dims)
     return xr.Dataset(out)
 
 

@@ -19,6 +19,7 @@ from multiprocessing import get_context
 from typing import Any, Callable
 
 from workbench import checks, engine, verdicts
+from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 
 # Versions recorded in every manifest: the interpreter and each scientific
@@ -125,6 +126,7 @@ def run_check(
     context = checks.Context(design, data, main, relaxed, calibration)
     say("running checks")
     findings = checks.run_all(context)
+    context.extras["computation"] = computation_summary(main.idata)
     declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
     judged = verdicts.decide(declared, findings)
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,

@@ -291,6 +291,9 @@ class Design:
         builder = relaxation.build if relaxation else self.recipe.build_model
         return builder(data, self.options, self.prior)
 
+    def validate(self, table) -> Dataset:
+        return self.recipe.validate(table, self.options)
+
     def observed(self, data: Dataset) -> Mapping[str, np.ndarray]:
         return self.recipe.observed(data)
 

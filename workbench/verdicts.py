@@ -89,7 +89,7 @@ def _load_rules() -> None:
 
 
 def judge(finding: Finding) -> Judgement:
-    if not _RULES:
+    if finding.kind not in _RULES:
         _load_rules()
     try:
         fn = _RULES[finding.kind]

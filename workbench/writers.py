@@ -138,6 +138,6 @@ def write_posterior(path: str | Path, idata) -> Path:
             drop = [n for n, v in node.dataset.data_vars.items() if v.dtype == object]
             if drop:
                 node.dataset = node.dataset.drop_vars(drop)
-        tree.to_netcdf(tmp)
+        tree.to_netcdf(tmp, engine="h5netcdf")
 
     return atomic_write_with(path, write)

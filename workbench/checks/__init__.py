@@ -43,9 +43,9 @@ def check(fn):
 
 
 def registered() -> list[tuple[str, Callable]]:
-    if not _CHECKS:
-        for info in pkgutil.iter_modules(__path__):
-            importlib.import_module(f"{__name__}.{info.name}")
+    """Every check, after importing each module of this package once."""
+    for info in pkgutil.iter_modules(__path__):
+        importlib.import_module(f"{__name__}.{info.name}")
     return list(_CHECKS)
 
 

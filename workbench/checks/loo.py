@@ -29,12 +29,33 @@ def pareto_k_threshold(draws: int) -> float:
 
 
 def loo_of(fit):
-    """ArviZ PSIS-LOO of a fit, pointwise."""
-    import arviz as az
+    """ArviZ PSIS-LOO of a fit, pointwise.
 
+    A row whose log-likelihood is the same in every draw (a probability
+    pinned at its bound) gets uniform weights and k = 0: leaving it out does
+    not change the posterior weights, and PSIS cannot fit a tail to a constant.
+    """
+    import arviz as az
+    import xarray as xr
+    from arviz_stats.loo.loo_helper import _get_r_eff
+
+    idata = fit.idata
+    names = list(idata["log_likelihood"].data_vars)
+    ll = idata["log_likelihood"][names[0]]
+    sample_dims = ["chain", "draw"]
+    n = ll.sizes["chain"] * ll.sizes["draw"]
+    constant = (ll.max(sample_dims) - ll.min(sample_dims)) == 0
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return az.loo(fit.idata, pointwise=True)
+        if not bool(constant.any()):
+            return az.loo(idata, pointwise=True, var_name=names[0])
+        # Break exact ties only so PSIS runs; those rows are overwritten below.
+        jitter = xr.DataArray(np.random.default_rng(0).normal(0, 1e-9, ll.shape), dims=ll.dims, coords=ll.coords)
+        safe = xr.where(constant, ll + jitter, ll)
+        log_weights, k = safe.azstats.psislw(r_eff=_get_r_eff(idata, n), dim=sample_dims)
+        log_weights = xr.where(constant, -np.log(n), log_weights).transpose(*ll.dims)
+        k = xr.where(constant, 0.0, k)
+        return az.loo(idata, pointwise=True, var_name=names[0], log_weights=log_weights, pareto_k=k)
 
 
 def loo_numbers(fit) -> dict:

@@ -46,6 +46,7 @@ def targeted_statistics(context: Context) -> list[Finding]:
             continue
         observed, replicated = discrepancies(statistic, context.data, context.fit)
         p = predictive_p_value(observed, replicated, statistic.sides)
+        context.extras.setdefault("ppc", {})[assumption.key] = (statistic.name, observed, replicated, p)
         lo, hi = np.nanpercentile(replicated, [5, 95])
         value = float(np.nanmean(observed))
         findings.append(

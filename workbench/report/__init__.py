@@ -1,0 +1,1 @@
+"""HTML report: templates and plot functions."""

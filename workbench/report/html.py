@@ -1,0 +1,167 @@
+"""The self-contained HTML report of a check run.
+
+One file: CSS inline, figures as inline PNG, no script and no network fetch.
+Every user-supplied string passes through Jinja's autoescaping.
+"""
+
+from __future__ import annotations
+
+import html
+from pathlib import Path
+
+import jinja2
+import numpy as np
+
+from workbench.report import plots
+from workbench.verdicts import BROKEN, DOUBTFUL, HOLDS, UNCHECKED
+
+TEMPLATES = Path(__file__).parent / "templates"
+
+# Verdicts are told apart by word and shape, not colour alone.
+BADGES = {
+    HOLDS: ("✓", "holds"),
+    DOUBTFUL: ("△", "doubtful"),
+    BROKEN: ("✕", "broken"),
+    UNCHECKED: ("○", "unchecked"),
+}
+
+CAUTION = (
+    "This model may inform decisions about people. Its checks say whether the model is "
+    "internally consistent with the data, not whether a decision based on it is fair, lawful "
+    "or safe: follow your organisation's model-risk policy, local regulation and licensed "
+    "professional practice before acting on it."
+)
+
+
+def environment() -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(TEMPLATES)),
+        autoescape=jinja2.select_autoescape(["html", "j2"], default=True),
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    env.filters["num"] = _num
+    env.globals["badges"] = BADGES
+    return env
+
+
+def _num(x, digits=3):
+    if x is None:
+        return "–"
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    if not np.isfinite(x):
+        return "–"
+    return f"{x:.{digits}g}"
+
+
+def anchor(key: str) -> str:
+    """A safe in-page id for an assumption key."""
+    return "a-" + "".join(c if c.isalnum() or c in "-_" else "-" for c in key)
+
+
+def _free_names(fit) -> list[str]:
+    post = fit.idata["posterior"]
+    names = [rv.name for rv in fit.model.free_RVs] if fit.model is not None else list(post.data_vars)
+    return [n for n in names if n in post.data_vars and post[n].ndim == 2]
+
+
+def figures(run) -> dict[str, dict]:
+    """Every figure of the report by name: {name: {"uri", "caption"}}."""
+    out: dict[str, dict] = {}
+    fit = run.fit
+    recipe = getattr(run.design, "recipe", None)
+    posterior = fit.draws()
+    predictive = fit.draws(group="posterior_predictive")
+    prior_predictive = fit.draws(group="prior_predictive") if "prior_predictive" in fit.idata.children else {}
+    if recipe is not None and recipe.figure is not None:
+        fig = recipe.figure(run.data, run.design.options, posterior, predictive)
+        out["fit"] = {"uri": plots.to_data_uri(fig),
+                      "caption": "Observed data against the fitted model."}
+    else:
+        covariate = getattr(recipe, "covariate", None) if recipe else None
+        observed = fit.idata["observed_data"].to_dataset()
+        for name in observed.data_vars:
+            y = observed[name].values
+            if y.ndim != 1:
+                continue
+            x = run.data[covariate] if covariate and covariate in getattr(run.data, "columns", {}) else np.arange(y.size)
+            fig = plots.predictive_by_covariate(
+                x, y, prior_predictive.get(name), predictive.get(name), covariate or "row", name)
+            out[f"fit-{name}"] = {"uri": plots.to_data_uri(fig),
+                                  "caption": f"{name}: observed against prior and posterior predictive."}
+    for key, (stat_name, observed, replicated, p) in run.extras.get("ppc", {}).items():
+        out[f"ppc-{key}"] = {"uri": plots.to_data_uri(plots.statistic_check(observed, replicated, stat_name, p)),
+                             "caption": f"Targeted statistic '{stat_name}': observed against replicated data."}
+    for assumption in getattr(run.design, "assumptions", ()):
+        relaxation = assumption.relaxation
+        if relaxation and relaxation.parameter in run.relaxed:
+            draws = run.relaxed[relaxation.parameter].draws([relaxation.parameter])[relaxation.parameter]
+            fig = plots.relaxation_posterior(draws, relaxation.null, relaxation.negligible, relaxation.parameter)
+            out[f"relaxation-{assumption.key}"] = {
+                "uri": plots.to_data_uri(fig),
+                "caption": f"Posterior of '{relaxation.parameter}' in the expanded model, against its null."}
+    names = _free_names(fit)
+    post_ds = fit.idata["posterior"].to_dataset()
+    if names:
+        fig = plots.rank_plot({n: post_ds[n].values for n in names}, names)
+        out["ranks"] = {"uri": plots.to_data_uri(fig),
+                        "caption": "Rank histograms per chain: flat and overlapping when chains agree."}
+        divergent = fit.idata["sample_stats"]["diverging"].values.ravel().astype(bool)
+        fig = plots.pair_plot({n: post_ds[n].values for n in names}, names, divergent)
+        out["pairs"] = {"uri": plots.to_data_uri(fig),
+                        "caption": "Posterior draws of the parameters in pairs; divergent transitions marked x."}
+    loo = run.extras.get("loo")
+    if loo:
+        out["pareto-k"] = {"uri": plots.to_data_uri(plots.pareto_k(loo["pareto_k"], loo["k_threshold"])),
+                           "caption": "Pareto k of each row in PSIS-LOO."}
+    if run.calibration is not None:
+        try:
+            from workbench.report import calibration_plots
+        except ImportError:
+            calibration_plots = None
+        if calibration_plots is not None:
+            for name, fig in calibration_plots.figures(run.calibration).items():
+                out[f"calibration-{name}"] = {"uri": plots.to_data_uri(fig), "caption": name}
+    return out
+
+
+def render(run, summary: dict, command: str = "") -> str:
+    """The report as one HTML string."""
+    figs = figures(run)
+    recipe = getattr(run.design, "recipe", None)
+    verdicts = []
+    for v in run.verdicts:
+        worst = max((j.level for _, j in v.evidence), default=0)
+        lead = next((f"{f.detail} {j.sentence}" for f, j in v.evidence if j.level == worst), "")
+        figure_names = [f.figure for f, _ in v.evidence if f.figure and f.figure in figs]
+        verdicts.append({
+            "key": v.key, "anchor": anchor(v.key), "statement": v.statement, "verdict": v.verdict,
+            "lead": lead.strip(), "advice": v.advice,
+            "evidence": [{"check": f.check, "value": f.value, "p_value": f.p_value,
+                          "detail": f.detail, "judgement": j.sentence, "level": j.level}
+                         for f, j in v.evidence],
+            "figures": [dict(figs[n], name=n) for n in dict.fromkeys(figure_names)],
+        })
+    used = {f["name"] for v in verdicts for f in v["figures"]}
+    fit_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("fit")]
+    sampler_figs = [dict(figs[k], name=k) for k in ("ranks", "pairs") if k in figs]
+    loo_figs = [dict(figs[k], name=k) for k in ("pareto-k",) if k in figs]
+    calibration_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("calibration-") and k not in used]
+    template = environment().get_template("report.html.j2")
+    return template.render(
+        title=f"Model check: {run.design.label()}",
+        design_label=run.design.label(),
+        summary=summary,
+        verdicts=verdicts,
+        caution=CAUTION if recipe is not None and recipe.people_decisions else "",
+        fit_figs=fit_figs,
+        sampler_figs=sampler_figs,
+        loo_figs=loo_figs,
+        calibration_figs=calibration_figs,
+        derived=summary.get("derived") or {},
+        command=command,
+        escape=html.escape,
+    )
