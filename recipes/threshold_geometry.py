@@ -23,7 +23,7 @@ from functools import partial
 
 import numpy as np
 import pandas as pd
-from scipy.special import ndtr
+from scipy.special import erf
 
 from workbench import tables
 from workbench.errors import DataError
@@ -128,7 +128,7 @@ def success_probability(distance, clearance, spread):
     """2 * Phi(arcsin(clearance / distance) / spread) - 1, inside (EPS, 1 - EPS)."""
     distance = np.asarray(distance, dtype=float)
     ratio = np.clip(clearance / distance, 0.0, 1.0)
-    p = 2.0 * ndtr(np.arcsin(ratio) / spread) - 1.0
+    p = erf(np.arcsin(ratio) / (spread * np.sqrt(2.0)))  # = 2 * Phi(z) - 1
     p = np.where(distance <= clearance, 1.0, p)
     return np.clip(p, EPS, 1.0 - EPS)
 
@@ -221,7 +221,8 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
             log_d = pt.log(distance)
             spread_row = spread_row * pt.exp(slope * (log_d - log_d.mean()))
         ratio = pt.clip(clearance / distance, 0.0, 1.0)
-        p_geo = 2.0 * pm.math.invprobit(pt.arcsin(ratio) / spread_row) - 1.0
+        # 2 * Phi(z) - 1 = erf(z / sqrt 2), without the cancellation near 1.
+        p_geo = pt.erf(pt.arcsin(ratio) / (spread_row * np.sqrt(2.0)))
         p_geo = pt.switch(distance <= clearance, 1.0, p_geo)
         if relax == "extra_failure":
             p_geo = p_geo * (1.0 - prior("extra_failure"))
