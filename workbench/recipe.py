@@ -307,8 +307,9 @@ class Design:
 
     def label(self) -> str:
         """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
+        defaults = {o.name: o.default for o in self.recipe.options}
         parts = [self.recipe.name]
-        parts += [f"{k}={v}" for k, v in sorted(self.options.items())]
+        parts += [f"{k}={v}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
 

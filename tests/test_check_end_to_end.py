@@ -1,0 +1,90 @@
+"""`workbench check` end to end: files, summary schema, numbers equal ArviZ's."""
+
+from __future__ import annotations
+
+import json
+
+import arviz as az
+import numpy as np
+import pytest
+import xarray as xr
+
+from workbench.cli import main
+
+SUMMARY_KEYS = {"schema", "recipe", "design", "seed", "data", "versions", "computation",
+                "assumptions", "loo", "calibration"}
+
+
+@pytest.fixture(scope="module")
+def checked(tmp_path_factory, throwing_csv):
+    out = tmp_path_factory.mktemp("run") / "out"
+    code = main(["check", "threshold-geometry", "--data", throwing_csv, "--set", "clearance=0.25",
+                 "--out", str(out), "--seed", "3", "--draws", "400", "--tune", "400", "--quiet"])
+    assert code == 0
+    return out
+
+
+def test_check_writes_every_output_file(checked):
+    for name in ("report.html", "summary.json", "posterior.nc", "notebook.ipynb"):
+        assert (checked / name).stat().st_size > 0
+    assert not list(checked.glob(".*.tmp"))
+
+
+def test_summary_follows_the_schema(checked):
+    doc = json.loads((checked / "summary.json").read_text())
+    assert SUMMARY_KEYS <= set(doc)
+    assert doc["schema"] == "workbench.summary/1"
+    assert doc["recipe"] == "threshold-geometry"
+    assert doc["data"]["rows"] == 11 and len(doc["data"]["sha256"]) == 64
+    keys = {a["key"] for a in doc["assumptions"]}
+    assert keys == {"priors", "computation", "implementation", "shared_spread", "angle_only",
+                    "independent_attempts"}
+    for a in doc["assumptions"]:
+        assert a["verdict"] in {"holds", "doubtful", "broken", "unchecked"}
+        for e in a["evidence"]:
+            assert set(e) == {"check", "value", "p_value", "detail"}
+    assert set(doc["loo"]) == {"elpd", "se", "p_loo", "bad_pareto_k"}
+    assert {"divergences", "max_rhat", "min_ess_bulk", "min_ess_tail", "min_bfmi",
+            "treedepth_hits", "seconds"} <= set(doc["computation"])
+
+
+def test_data_simulated_from_the_story_passes_every_assumption(checked):
+    doc = json.loads((checked / "summary.json").read_text())
+    verdicts = {a["key"]: a["verdict"] for a in doc["assumptions"]}
+    assert verdicts.pop("implementation") == "unchecked"
+    assert "broken" not in verdicts.values()
+
+
+def test_rhat_and_ess_in_the_summary_equal_arviz_on_the_written_tree(checked):
+    # Reference library: ArviZ's rank-normalised split R-hat and ESS
+    # (Vehtari et al. 2021) on the very DataTree the run wrote.
+    doc = json.loads((checked / "summary.json").read_text())
+    tree = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")
+    post = tree["posterior"].to_dataset()[["spread"]]
+    assert doc["computation"]["max_rhat"] == pytest.approx(float(az.rhat(post)["spread"]), rel=1e-9)
+    assert doc["computation"]["min_ess_bulk"] == pytest.approx(float(az.ess(post, method="bulk")["spread"]), rel=1e-9)
+    assert doc["computation"]["min_ess_tail"] == pytest.approx(float(az.ess(post, method="tail")["spread"]), rel=1e-9)
+
+
+def test_written_tree_keeps_every_group(checked):
+    tree = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")
+    assert {"prior", "prior_predictive", "posterior", "sample_stats", "log_likelihood", "log_prior",
+            "posterior_predictive", "observed_data"} <= set(tree.children)
+
+
+def test_report_is_self_contained_and_puts_the_diagnosis_first(checked):
+    page = (checked / "report.html").read_text()
+    assert "http://" not in page and "https://" not in page and "<script" not in page
+    assert page.index('id="diagnosis"') < page.index('id="evidence"')
+    for key in ("shared_spread", "angle_only", "independent_attempts", "priors", "computation"):
+        assert f'href="#a-{key}"' in page and f'id="a-{key}"' in page
+    assert page.count("data:image/png;base64,") >= 5
+
+
+def test_rerun_with_the_same_seed_gives_the_same_numbers(checked, throwing_csv, tmp_path):
+    out = tmp_path / "again"
+    main(["check", "threshold-geometry", "--data", throwing_csv, "--set", "clearance=0.25",
+          "--out", str(out), "--seed", "3", "--draws", "400", "--tune", "400", "--quiet", "--no-relax"])
+    first = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")["posterior"]["spread"].values
+    second = xr.open_datatree(out / "posterior.nc", engine="h5netcdf")["posterior"]["spread"].values
+    np.testing.assert_array_equal(first, second)
