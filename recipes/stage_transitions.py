@@ -338,7 +338,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
             first_step = np.unique(cohort_of_step, return_index=True)
             start = pt.zeros((len(data.labels["cohort"]), len(data.extra["stages"])))
             start = pt.set_subtensor(start[first_step[0]], previous[first_step[1]])
-            start = pt.set_subtensor(start[:, 0], start[:, 0] + (start.sum(axis=-1) == 0))
+            start = pt.set_subtensor(start[:, 0], start[:, 0] + pt.eq(start.sum(axis=-1), 0))
             per_step = _with_dormant(data, matrices, prior("dormant"), start,
                                      data["age"][step - 1], cohort_of_step)
         total = previous.sum(axis=-1, keepdims=True)
