@@ -55,7 +55,8 @@ def computation_verdict(fit):
 
 
 def sentences(verdict) -> str:
-    return " ".join(j.sentence for _, j in verdict.evidence)
+    """The evidence as the report prints it: each measurement, then its judgement."""
+    return " ".join(f"{f.detail} {j.sentence}" for f, j in verdict.evidence)
 
 
 def by_kind(fit, kind):
@@ -238,8 +239,8 @@ def test_ridge_names_both_parameters(ridge_fit):
     verdict = computation_verdict(ridge_fit)
     ridge = next(j for f, j in verdict.evidence if f.kind == "ridge")
     assert ridge.level >= 1
-    assert "ridge between a and b" in ridge.sentence or "ridge between b and a" in ridge.sentence
-    assert "sum" in ridge.sentence
+    assert "ridge" in ridge.sentence
+    assert "sum of a and b" in ridge.sentence or "sum of b and a" in ridge.sentence
 
 
 # --- a healthy simple model ----------------------------------------------------------------

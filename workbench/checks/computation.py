@@ -201,9 +201,20 @@ class Elements:
 def unconstrained(ds: xr.Dataset, model) -> tuple[xr.Dataset, dict[str, str]]:
     """The variables of ``ds`` on the model's unconstrained scale.
 
-    Returns the transformed dataset and the scale name of each transformed
-    variable. Variables without a transform, or whose transform depends on
-    other parameters, keep their values.
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Draws of free parameters with ``chain`` and ``draw`` dimensions.
+    model : pymc.Model or None
+        Supplies each parameter's value transform; None keeps every value.
+
+    Returns
+    -------
+    (xarray.Dataset, dict)
+        The transformed draws (through ArviZ's ``get_unconstrained_samples``)
+        and the scale name (``log``, ``logit``, ...) of each transformed
+        variable. Variables without a transform, or whose transform bounds
+        are themselves parameters, keep their values.
     """
     import arviz as az
 
@@ -256,7 +267,20 @@ def _forward(model, rv):
 
 
 def elements(ds: xr.Dataset, scales: dict[str, str] | None = None) -> Elements:
-    """Flatten every variable of ``ds`` into scalar elements with readable labels."""
+    """Flatten every variable of ``ds`` into scalar elements with readable labels.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Variables with ``chain`` and ``draw`` dimensions (any others are
+        flattened, labelled by their coordinate values).
+    scales : dict, optional
+        Scale name per variable, as returned by :func:`unconstrained`.
+
+    Returns
+    -------
+    Elements
+    """
     scales = scales or {}
     blocks, labels, variable, scale = [], [], [], []
     for name, da in ds.data_vars.items():
@@ -304,18 +328,18 @@ def sampler_health(context: Context) -> list[Finding]:
     findings = []
     if "diverging" in stats:
         diverging = np.asarray(stats["diverging"].transpose(*SAMPLE_DIMS).values, dtype=bool)
-        findings += divergence_findings(idata, model, draws, diverging)
-    findings.append(rhat_finding(free))
-    findings.append(ess_finding(free))
+        findings += _divergence_findings(idata, model, draws, diverging)
+    findings.append(_rhat_finding(free))
+    findings.append(_ess_finding(free))
     if "energy" in stats:
-        findings.append(bfmi_finding(idata, draws))
+        findings.append(_bfmi_finding(idata, draws))
     if "maxdepth_reached" in stats or "reached_max_treedepth" in stats:
-        findings.append(treedepth_finding(stats, draws))
+        findings.append(_treedepth_finding(stats, draws))
     prior = _prior_elements(idata, model, list(free.data_vars))
     if draws.values.shape[-1] > 1:
-        findings.append(ridge_finding(draws, prior))
+        findings.append(_ridge_finding(draws, prior))
     if prior is not None:
-        findings.append(contraction_finding(draws, prior))
+        findings.append(_contraction_finding(draws, prior))
     return findings
 
 
@@ -332,19 +356,33 @@ def _finding(kind: str, value, detail: str, **numbers) -> Finding:
 def locate(values: np.ndarray, divergent: np.ndarray) -> list[dict]:
     """Where the divergent draws sit, element by element, most extreme first.
 
-    For each column of ``values`` (draws x elements):
+    Parameters
+    ----------
+    values : numpy.ndarray
+        Draws x elements, on the scale the sampler works on.
+    divergent : numpy.ndarray of bool
+        One flag per draw.
 
-    ``quantile``
-        the mean percentile of the divergent draws among the non-divergent
-        ones (the Mann-Whitney U statistic over the product of the group
-        sizes): 0.5 when divergences are spread like the rest, near 0 when
-        they crowd the low end;
-    ``z``
-        its normal-approximation score under "divergent draws are a random
-        subset" (ignores autocorrelation, so it overstates a little);
-    ``smd``
-        the standardised mean difference, divergent minus non-divergent, in
-        non-divergent sds.
+    Returns
+    -------
+    list of dict
+        One entry per element (``element`` is its column), ordered by
+        ``|z|``, with:
+
+        ``quantile``
+            the mean percentile of the divergent draws among the
+            non-divergent ones (the Mann-Whitney U statistic over the product
+            of the group sizes): 0.5 when divergences are spread like the
+            rest, near 0 when they crowd the low end;
+        ``z``
+            its normal-approximation score under "divergent draws are a
+            random subset" (ignores autocorrelation, so it overstates a
+            little);
+        ``smd``
+            the standardised mean difference, divergent minus non-divergent,
+            in non-divergent sds;
+        ``direction``
+            ``small`` or ``large``.
 
     References
     ----------
@@ -374,7 +412,7 @@ def locate(values: np.ndarray, divergent: np.ndarray) -> list[dict]:
     ]
 
 
-def divergence_findings(idata, model, draws: Elements, diverging: np.ndarray) -> list[Finding]:
+def _divergence_findings(idata, model, draws: Elements, diverging: np.ndarray) -> list[Finding]:
     """The ``divergences`` finding and, when they can be located, ``funnel`` and ``boundary``."""
     count, total = int(diverging.sum()), int(diverging.size)
     per_chain = diverging.sum(axis=1).astype(int).tolist()
@@ -399,7 +437,7 @@ def divergence_findings(idata, model, draws: Elements, diverging: np.ndarray) ->
     funnel = _funnel_finding(scales, draws, by_element)
     if funnel is not None:
         findings.append(funnel)
-    edge = _boundary_finding(idata, model, mask)
+    edge = _boundary_finding(idata, mask)
     if edge is not None:
         findings.append(edge)
     return findings
@@ -420,6 +458,20 @@ def centred_scales(model, posterior: xr.Dataset) -> list[dict]:
     one element, whose scale argument depends directly on another free
     parameter. That is the centred form of a hierarchy, whose posterior has a
     funnel at small scales.
+
+    Parameters
+    ----------
+    model : pymc.Model or None
+        The fitted model (None finds nothing).
+    posterior : xarray.Dataset
+        Posterior draws, read for the number of elements of each child.
+
+    Returns
+    -------
+    list of dict
+        ``scale`` (the parent's name), ``child`` and ``location`` (the
+        child's location parameter when it is a free parameter itself, else
+        an empty string), one entry per parent-child link.
 
     References
     ----------
@@ -492,7 +544,7 @@ def _unit_interval(idata, name: str) -> bool:
     return True
 
 
-def _boundary_finding(idata, model, mask: np.ndarray) -> Finding | None:
+def _boundary_finding(idata, mask: np.ndarray) -> Finding | None:
     posterior = idata["posterior"].to_dataset()
     names = [n for n, da in posterior.data_vars.items()
              if da.dtype.kind == "f" and _unit_interval(idata, n)]
@@ -530,7 +582,7 @@ def _boundary_finding(idata, model, mask: np.ndarray) -> Finding | None:
 # --- chains that disagree -----------------------------------------------------
 
 
-def rhat_finding(free: xr.Dataset) -> Finding:
+def _rhat_finding(free: xr.Dataset) -> Finding:
     """Worst split R-hat with where each chain sits on that parameter.
 
     Chain means are on the posterior's own scale, where a modeler reads them.
@@ -559,7 +611,16 @@ def rhat_finding(free: xr.Dataset) -> Finding:
 def chain_groups(chains: np.ndarray) -> list[list[int]]:
     """Chains that sit together: linked when their central 90% intervals overlap.
 
-    ``chains`` is (chain, draw). Groups are ordered by their mean.
+    Parameters
+    ----------
+    chains : numpy.ndarray
+        Draws of one scalar, shaped (chain, draw).
+
+    Returns
+    -------
+    list of list of int
+        Groups of chain indices, ordered by their mean; more than one group
+        means some chains never visit where the others are.
     """
     low, high = np.quantile(chains, CHAIN_INTERVAL, axis=1)
     order = np.argsort(chains.mean(axis=1))
@@ -574,7 +635,7 @@ def chain_groups(chains: np.ndarray) -> list[list[int]]:
     return [sorted(g) for g in groups]
 
 
-def ess_finding(free: xr.Dataset) -> Finding:
+def _ess_finding(free: xr.Dataset) -> Finding:
     """Smallest bulk and tail ESS over the free parameters."""
     import arviz as az
 
@@ -598,7 +659,7 @@ def ess_finding(free: xr.Dataset) -> Finding:
 # --- energy and tree depth ------------------------------------------------------
 
 
-def bfmi_finding(idata, draws: Elements) -> Finding:
+def _bfmi_finding(idata, draws: Elements) -> Finding:
     """E-BFMI per chain and the parameter whose value moves most with the energy."""
     per_chain = _bfmi_per_chain(idata)
     energy = np.asarray(idata["sample_stats"]["energy"].transpose(*SAMPLE_DIMS).values, float).ravel()
@@ -622,7 +683,7 @@ def _most_correlated(draws: Elements, target: np.ndarray) -> tuple[str, float]:
     return draws.named(k), float(r[k])
 
 
-def treedepth_finding(stats: xr.Dataset, draws: Elements) -> Finding:
+def _treedepth_finding(stats: xr.Dataset, draws: Elements) -> Finding:
     """Share of draws that hit the maximum tree depth, with the usual suspects."""
     name = "maxdepth_reached" if "maxdepth_reached" in stats else "reached_max_treedepth"
     hits = np.asarray(stats[name].values, dtype=bool)
@@ -644,7 +705,19 @@ def treedepth_finding(stats: xr.Dataset, draws: Elements) -> Finding:
 
 
 def correlated_pairs(draws: Elements) -> list[dict]:
-    """The most correlated pairs of elements (unconstrained scale), strongest first."""
+    """The most correlated pairs of elements (unconstrained scale), strongest first.
+
+    Parameters
+    ----------
+    draws : Elements
+        Unconstrained draws; constant elements are skipped and at most
+        ``MAX_PAIR_ELEMENTS`` enter the correlation matrix.
+
+    Returns
+    -------
+    list of dict
+        Up to ``TOP`` pairs with their labels and Pearson correlation.
+    """
     values = draws.flat()
     keep = np.flatnonzero(values.std(axis=0) > 0)[:MAX_PAIR_ELEMENTS]
     if keep.size < 2:
@@ -678,7 +751,7 @@ def _sd_ratio(draws: Elements, prior: Elements | None) -> np.ndarray | None:
         return draws.flat().std(axis=0) / prior.flat().std(axis=0)
 
 
-def ridge_finding(draws: Elements, prior: Elements | None) -> Finding:
+def _ridge_finding(draws: Elements, prior: Elements | None) -> Finding:
     """The most correlated parameter pairs and how much each member contracted."""
     pairs = correlated_pairs(draws)
     ratio = _sd_ratio(draws, prior)
@@ -697,7 +770,7 @@ def ridge_finding(draws: Elements, prior: Elements | None) -> Finding:
     )
 
 
-def contraction_finding(draws: Elements, prior: Elements) -> Finding:
+def _contraction_finding(draws: Elements, prior: Elements) -> Finding:
     """Posterior sd as a share of prior sd (unconstrained scale), largest first.
 
     References
@@ -712,6 +785,7 @@ def contraction_finding(draws: Elements, prior: Elements) -> Finding:
     least = [{"parameter": draws.named(k), "sd_ratio": float(ratio[k])} for k in order]
     return _finding(
         "contraction", least[0]["sd_ratio"],
-        f"Largest posterior/prior sd ratio {least[0]['sd_ratio']:.2f} ({least[0]['parameter']}).",
+        "Largest posterior/prior sd ratios (unconstrained scale): "
+        + ", ".join(f"{p['parameter']} {p['sd_ratio']:.2f}" for p in least) + ".",
         least=least,
     )

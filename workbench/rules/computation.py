@@ -98,17 +98,15 @@ def _chains(group: list[int]) -> str:
 @rule("divergences")
 def divergences(f: Finding) -> Judgement:
     n = f.numbers
-    count = int(n["count"])
+    count, share = int(n["count"]), n["share"]
     if count == 0:
-        return Judgement(0, "No divergent transitions.")
-    share = n["share"]
-    head = f"{count} of {n['draws']} draws ({100 * share:.2g}%) diverged"
+        return Judgement(0, "Nothing to locate.")
     located = [p for p in n.get("located", []) if _located(p)]
     if located:
         top = located[0]
         others = ", ".join(p["parameter"] for p in located[1:])
         sentence = (
-            f"{head}, concentrated at {_natural(top)}: on average they sit at the "
+            f"They concentrate at {_natural(top)}: on average they sit at the "
             f"{_percentile(top['quantile'])} of the other draws"
             + (f" (also unusual: {others})" if others else "") + "."
         )
@@ -125,37 +123,30 @@ def divergences(f: Finding) -> Judgement:
     if not n.get("locatable") and share <= ISOLATED_SHARE:
         return Judgement(
             0,
-            f"{head}: isolated and too few to locate; if that recurs with another seed, raise "
-            f"the target acceptance.",
+            "Isolated and too few to locate; if that recurs with another seed, raise the target "
+            "acceptance.",
         )
-    if not n.get("locatable"):
-        where = "too few to locate"
-    else:
-        where = "spread through the posterior with no region standing out"
+    where = "Too few to locate" if not n.get("locatable") else (
+        "Spread through the posterior with no region standing out"
+    )
     level = 2 if share > DIVERGENCE_SHARE_BROKEN else 1
     advice = (
         "Refit with a higher target acceptance (e.g. 0.95); if divergences remain, plot the "
         "divergent draws against the scale parameters to find where they sit."
     )
-    return Judgement(level, f"{head}, {where}.", advice, strength=share)
+    return Judgement(level, f"{where} ({100 * share:.2g}% of draws).", advice, strength=share)
 
 
 @rule("funnel")
 def funnel(f: Finding) -> Judgement:
     n = f.numbers
     scale, child = n["scale"], n["child"]
-    children = ", ".join(n["children"])
     if not _located(n):
-        return Judgement(
-            0,
-            f"{scale} is the scale of {children} in centred form, but divergences do not crowd "
-            f"its small values.",
-        )
+        return Judgement(0, f"Divergences do not crowd either end of {scale}.")
     location = n.get("location") or "its mean"
     sentence = (
-        f"{scale} is the sd of {children} in the centred form, and the divergences crowd its "
-        f"{n['direction']} values (on average at the {_percentile(n['quantile'])} of the other "
-        f"draws): the funnel of a centred hierarchy, whose neck the sampler cannot enter."
+        f"The funnel of a centred hierarchy: divergences crowd {n['direction']} values of "
+        f"{scale}, the neck where the sampler cannot follow {', '.join(n['children'])}."
     )
     advice = (
         f"Write {child} in the non-centred form: {child} = {location} + {scale} * {child}_z "
@@ -166,16 +157,13 @@ def funnel(f: Finding) -> Judgement:
 
 @rule("boundary")
 def boundary(f: Finding) -> Judgement:
-    places = f.numbers["located"]
-    pushed = [p for p in places if _located(p)]
+    pushed = [p for p in f.numbers["located"] if _located(p)]
     if not pushed:
-        return Judgement(0, "Divergent draws do not crowd the edges of any probability.")
-    top = pushed[0]
+        return Judgement(0, "No more crowded at the edge than the other draws.")
     names = ", ".join(p["parameter"] for p in pushed)
     sentence = (
-        f"Divergences push {names} to {top['edge']} (median divergent draw {top['median']:.3g}, "
-        f"on average at the {_percentile(top['quantile'])} of the other draws): the sampler "
-        f"meets a probability pinned to its edge."
+        f"Divergences push {names} to {pushed[0]['edge']}: the sampler meets a probability "
+        f"pinned to its edge."
     )
     advice = (
         "Give the probability a bounded formulation that never reaches 0 or 1: build it on the "
@@ -189,16 +177,16 @@ def boundary(f: Finding) -> Judgement:
 def rhat(f: Finding) -> Judgement:
     n = f.numbers
     if f.value is None:
-        return Judgement(0, "R-hat is undefined: the free parameters do not vary.")
+        return Judgement(0, "Nothing to compare.")
     value, parameter = f.value, n["parameter"]
     if value <= RHAT_DOUBTFUL:
-        return Judgement(0, f"Chains agree (largest R-hat {value:.3f}, {parameter}).")
+        return Judgement(0, f"Chains agree (R-hat at most {RHAT_DOUBTFUL}).")
     groups, means = n["groups"], n["group_means"]
     if len(groups) > 1:
         where = ", ".join(f"{_chains(g)} near {m:.3g}" for g, m in zip(groups, means))
         sentence = (
-            f"Chains disagree on {parameter} (R-hat {value:.2f}): {where}, with no overlap "
-            f"between these groups: the posterior has separate modes or some chains are stuck."
+            f"Chains disagree on {parameter}: {where}, with no overlap between these groups: "
+            f"the posterior has separate modes or some chains are stuck."
         )
         advice = (
             f"Find what separates the modes of {parameter}: a symmetry (labels, signs or "
@@ -208,8 +196,8 @@ def rhat(f: Finding) -> Judgement:
         )
         return Judgement(2, sentence, advice, strength=value)
     sentence = (
-        f"Chains disagree on {parameter} (R-hat {value:.3f}) though they overlap: they mix "
-        f"slowly (bulk ESS {n['ess_bulk']:.0f} of {n['draws']} draws)."
+        f"Chains disagree on {parameter} though they overlap: they mix slowly (bulk ESS "
+        f"{n['ess_bulk']:.0f} of {n['draws']} draws)."
     )
     return Judgement(
         2 if value > RHAT_BROKEN else 1, sentence, _slow_advice(parameter), strength=value - 1.0
@@ -220,18 +208,14 @@ def rhat(f: Finding) -> Judgement:
 def ess(f: Finding) -> Judgement:
     n = f.numbers
     if f.value is None:
-        return Judgement(0, "ESS is undefined: the free parameters do not vary.")
+        return Judgement(0, "Nothing to count.")
     needed = ESS_PER_CHAIN * n["chains"]
-    text = (
-        f"smallest bulk ESS {n['bulk']:.0f} ({n['bulk_parameter']}), smallest tail ESS "
-        f"{n['tail']:.0f} ({n['tail_parameter']})"
-    )
     if f.value >= needed:
-        return Judgement(0, f"Enough effective draws: {text}.")
+        return Judgement(0, f"Enough effective draws (at least {needed}).")
     level = 2 if f.value < ESS_BROKEN else 1
     sentence = (
-        f"Too few effective draws: {text}, below {needed} ({ESS_PER_CHAIN} per chain); "
-        f"means and intervals carry Monte Carlo error."
+        f"Too few effective draws: below {needed} ({ESS_PER_CHAIN} per chain), means and "
+        f"intervals carry Monte Carlo error."
     )
     slow = n["bulk_parameter"] if n["bulk"] <= n["tail"] else n["tail_parameter"]
     return Judgement(level, sentence, _slow_advice(slow), strength=1.0 - f.value / needed)
@@ -248,18 +232,17 @@ def _slow_advice(parameter: str) -> str:
 @rule("bfmi")
 def bfmi(f: Finding) -> Judgement:
     n = f.numbers
-    low = [(c, v) for c, v in enumerate(n["per_chain"]) if v < BFMI_LOW]
+    low = [c for c, v in enumerate(n["per_chain"]) if v < BFMI_LOW]
     if not low:
-        return Judgement(0, f"E-BFMI fine in every chain (lowest {f.value:.2f}).")
-    chains = ", ".join(f"{v:.2f} in chain {c}" for c, v in low)
+        return Judgement(0, f"At least {BFMI_LOW} in every chain.")
     partner = n.get("energy_parameter")
     moves = (
         f"; the energy moves most with {partner} (r = {n['energy_correlation']:+.2f})"
         if partner else ""
     )
     sentence = (
-        f"Low E-BFMI ({chains}; below {BFMI_LOW}): the sampler explores the tails of the "
-        f"energy poorly{moves}."
+        f"Below {BFMI_LOW} in {_chains(low)}: the sampler explores the tails of the energy "
+        f"poorly{moves}."
     )
     advice = (
         "The usual causes are heavy-tailed posteriors or a funnel in a scale parameter"
@@ -273,10 +256,13 @@ def bfmi(f: Finding) -> Judgement:
 def treedepth(f: Finding) -> Judgement:
     n = f.numbers
     if n["hits"] == 0:
-        return Judgement(0, "No draw hit the maximum tree depth.")
-    depth = f" {n['max_depth']}" if n.get("max_depth") is not None else ""
-    step = f", step size {n['step_size']:.2g}" if n.get("step_size") is not None else ""
-    sentence = f"{100 * n['share']:.1f}% of draws hit the maximum tree depth{depth}{step}."
+        return Judgement(0, "No saturation.")
+    depth = f" (depth {n['max_depth']})" if n.get("max_depth") is not None else ""
+    step = f", at step size {n['step_size']:.2g}" if n.get("step_size") is not None else ""
+    sentence = (
+        f"Saturation in {100 * n['share']:.2g}% of draws{depth}{step}: trajectories are cut "
+        f"short, which costs speed, not validity."
+    )
     causes = []
     pair = n.get("strongest_pair")
     if pair:
@@ -287,7 +273,7 @@ def treedepth(f: Finding) -> Judgement:
     causes.append(f"poorly scaled parameters (posterior sds span a factor {n['scale_ratio']:.3g})")
     causes.append("a tiny step size forced by a sharply curved region (see divergences)")
     advice = (
-        "Saturation costs speed, not validity. Usual causes: " + "; ".join(causes)
+        "Usual causes: " + "; ".join(causes)
         + ". Reparameterise the correlated pair or rescale parameters to order one."
     )
     return Judgement(1, sentence, advice, strength=n["share"])
@@ -297,7 +283,7 @@ def treedepth(f: Finding) -> Judgement:
 def ridge(f: Finding) -> Judgement:
     pairs = [p for p in f.numbers["pairs"] if abs(p["correlation"]) > RIDGE_CORRELATION]
     if not pairs:
-        return Judgement(0, f"No near-flat ridge (largest |correlation| {f.value:.2f}).")
+        return Judgement(0, f"No near-flat ridge (|correlation| at most {RIDGE_CORRELATION}).")
     top = pairs[0]
     a, b, r = top["a"], top["b"], top["correlation"]
     combination = "sum" if r < 0 else "difference"
@@ -309,9 +295,8 @@ def ridge(f: Finding) -> Judgement:
         )
     others = ", ".join(f"{p['a']} and {p['b']}" for p in pairs[1:])
     sentence = (
-        f"Near-flat ridge between {a} and {b} (posterior correlation {r:+.3f}): the data pin "
-        f"down their {combination} but cannot separate them{kept}"
-        + (f"; also {others}" if others else "") + "."
+        f"Near-flat ridge: the data pin down the {combination} of {a} and {b} but cannot "
+        f"separate them{kept}" + (f"; also {others}" if others else "") + "."
     )
     advice = (
         f"Reparameterise {a} and {b} by their {combination} and one other combination, fix "
@@ -324,16 +309,13 @@ def ridge(f: Finding) -> Judgement:
 def contraction(f: Finding) -> Judgement:
     least = f.numbers.get("least", [])
     barely = [p for p in least if p["sd_ratio"] >= BARELY_CONTRACTS]
+    if not least:
+        return Judgement(0, "Nothing to compare.")
     if not barely:
-        if not least:
-            return Judgement(0, "Prior and posterior could not be compared.")
-        top = least[0]
-        return Judgement(
-            0, f"Every parameter contracts from its prior (least: {top['parameter']}, posterior "
-               f"sd {top['sd_ratio']:.2f} of prior sd).")
+        return Judgement(0, "Every parameter contracts from its prior.")
     names = ", ".join(f"{p['parameter']} ({p['sd_ratio']:.2f})" for p in barely)
     return Judgement(
         0,
-        f"The data say little beyond the prior about {names} (posterior sd as a share of prior "
-        f"sd); their estimates echo the prior.",
+        f"The data say little beyond the prior about {names}; their estimates echo the prior "
+        f"(not a sampling fault).",
     )
