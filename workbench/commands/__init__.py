@@ -1,0 +1,95 @@
+"""Command modules; arguments and helpers shared between them."""
+
+from __future__ import annotations
+
+import argparse
+import shlex
+import sys
+import textwrap
+
+from workbench.errors import OptionError
+
+
+def key_value(text: str) -> tuple[str, str]:
+    key, sep, value = text.partition("=")
+    if not sep or not key.strip():
+        raise argparse.ArgumentTypeError(f"expected KEY=VALUE; found {text!r}")
+    return key.strip(), value.strip()
+
+
+def whole_number(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number; found {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a number >= 0; found {text!r}")
+    return value
+
+
+def add_run_arguments(p: argparse.ArgumentParser) -> None:
+    """Options every command that fits models shares."""
+    p.add_argument("--seed", type=whole_number, default=1, help="seed for every random step (default 1)")
+    p.add_argument("--out", help="output folder (default: a new folder under reports/)")
+    p.add_argument("--force", action="store_true", help="allow writing into a folder that holds files")
+    p.add_argument("--quiet", action="store_true", help="no progress output")
+    p.add_argument("--recipes", action="append", default=[], metavar="DIR",
+                   help="extra recipe folder (repeatable; also $WORKBENCH_RECIPES)")
+    p.add_argument("--draws", type=whole_number, default=1000, help="posterior draws per chain")
+    p.add_argument("--tune", type=whole_number, default=1000, help="warm-up draws per chain")
+    p.add_argument("--chains", type=whole_number, default=4, help="number of chains")
+
+
+def add_design_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--set", dest="options", action="append", default=[], type=key_value,
+                   metavar="KEY=VALUE", help="a design option (repeatable)")
+    p.add_argument("--prior", dest="priors", action="append", default=[], metavar="PARAM=DIST(ARGS)",
+                   help="override a prior, e.g. spread=halfnormal(0.05) (repeatable)")
+
+
+def say(args):
+    """Progress lines on stderr unless --quiet."""
+    if getattr(args, "quiet", False):
+        return lambda _: None
+    return lambda message: print(f"· {message}", file=sys.stderr, flush=True)
+
+
+def show_progress(args) -> bool:
+    return not getattr(args, "quiet", False) and sys.stderr.isatty()
+
+
+def settings(args):
+    from workbench.engine import Settings
+
+    if args.chains < 1 or args.draws < 10:
+        raise OptionError(f"--chains must be >= 1 and --draws >= 10; found {args.chains} and {args.draws}")
+    return Settings(draws=args.draws, tune=args.tune, chains=args.chains)
+
+
+def priors(texts: list[str]) -> dict[str, str]:
+    from workbench.priors import parse_override
+
+    out = {}
+    for text in texts:
+        name, spec = parse_override(text)
+        out[name] = str(spec)
+    return out
+
+
+def command_line() -> str:
+    return " ".join(["workbench"] + [shlex.quote(a) for a in sys.argv[1:]])
+
+
+SYMBOLS = {"holds": "✓", "doubtful": "△", "broken": "✕", "unchecked": "○"}
+
+
+def print_verdicts(summary: dict) -> None:
+    """The verdict table in the terminal, most urgent first."""
+    rows = [(a["key"], a["verdict"], a["advice"]) for a in summary["assumptions"]]
+    width = max(len(k) for k, _, _ in rows)
+    print(f"{summary['recipe']}: {len(rows)} assumptions")
+    for key, verdict, advice in rows:
+        line = f"  {SYMBOLS[verdict]} {key:<{width}}  {verdict:<9}"
+        if verdict in ("broken", "doubtful") and advice:
+            line += "  " + textwrap.shorten(advice, 90)
+        print(line.rstrip())
