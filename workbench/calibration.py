@@ -46,8 +46,6 @@ import threading
 import time
 import uuid
 import warnings
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
 from multiprocessing import get_context
 from pathlib import Path
@@ -223,33 +221,41 @@ class _Job:
 
 
 class _Compiled:
-    """The model, its prior draw and its log-likelihood, each compiled once."""
+    """One model compiled once per process: the sampler, and, compiled on first
+    use, the prior draw and the log-likelihood of each simulator mode."""
 
-    def __init__(self, design, data, simulator: str):
-        from pymc.pytensorf import compile as compile_graph
-
+    def __init__(self, design, data):
         from workbench.engine import Sampler
 
-        model = design.build(data)
-        self.design, self.data, self.model = design, data, model
-        self.sampler = Sampler(model)
-        self.free = [rv.name for rv in model.free_RVs]
-        outputs = list(model.free_RVs) + list(model.deterministics)
-        if simulator == SIMULATOR_RECIPE:
-            self.outcomes = {}
-            containers = list(design.observed(data))
-        else:
-            self.outcomes = _outcome_containers(model, self.sampler.data_names)
-            outputs += [model[name] for name in self.outcomes]
-            containers = list(self.outcomes.values())
-        self.output_names = [v.name for v in outputs]
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            self.draw, updates = compile_graph([], outputs, random_seed=False, return_updates=True)
-        self.rngs = list(updates)
-        self.containers = containers
-        self.loglik, self.loglik_dtypes = _loglik_function(model, self.free, containers)
+        self.model = design.build(data)
+        self.sampler = Sampler(self.model)
+        self.free = [rv.name for rv in self.model.free_RVs]
+        self._draws: dict[str, tuple] = {}
+        self._logliks: dict[tuple, tuple] = {}
         self.lock = threading.Lock()
+
+    def prior_draw(self, simulator: str):
+        """(function, its random generators, output names, outcome containers)."""
+        if simulator not in self._draws:
+            from pymc.pytensorf import compile as compile_graph
+
+            model = self.model
+            outputs = list(model.free_RVs) + list(model.deterministics)
+            outcomes = {}
+            if simulator == SIMULATOR_MODEL:
+                outcomes = _outcome_containers(model, self.sampler.data_names)
+                outputs += [model[name] for name in outcomes]
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fn, updates = compile_graph([], outputs, random_seed=False, return_updates=True)
+            self._draws[simulator] = (fn, list(updates), [v.name for v in outputs], outcomes)
+        return self._draws[simulator]
+
+    def loglik(self, containers: tuple[str, ...]):
+        """(function, input dtypes) of the observed log-likelihood for these containers."""
+        if containers not in self._logliks:
+            self._logliks[containers] = _loglik_function(self.model, self.free, list(containers))
+        return self._logliks[containers]
 
     def replicate(self, job: _Job, index: int) -> dict:
         """Simulate, refit and rank one replicate; failures become a reason."""
@@ -257,16 +263,17 @@ class _Compiled:
 
         seeds = replicate_seeds(job.seed, index)
         record: dict[str, Any] = {"index": index, "failed": None}
-        reseed_rngs(self.rngs, seeds["prior"])
-        drawn = dict(zip(self.output_names, self.draw()))
+        draw, rngs, names, outcomes = self.prior_draw(job.simulator)
+        reseed_rngs(rngs, seeds["prior"])
+        drawn = dict(zip(names, draw()))
         truth = {name: np.asarray(drawn[name]) for name in self.free}
         try:
             if job.simulator == SIMULATOR_RECIPE:
-                simulated = self.design.simulate(np.random.default_rng(seeds["simulate"]), self.data,
-                                                 drawn)
-                observed = {k: np.asarray(v) for k, v in self.design.observed(simulated).items()}
+                simulated = job.design.simulate(np.random.default_rng(seeds["simulate"]), job.data,
+                                                drawn)
+                observed = {k: np.asarray(v) for k, v in job.design.observed(simulated).items()}
             else:
-                observed = {container: np.asarray(drawn[rv]) for rv, container in self.outcomes.items()}
+                observed = {container: np.asarray(drawn[rv]) for rv, container in outcomes.items()}
         except Exception as err:  # the user's simulator: record, never abort the run
             record["failed"] = f"simulation failed: {type(err).__name__}: {err}"
             return record
@@ -299,8 +306,9 @@ class _Compiled:
             thinned[name] = pooled
             for label, true, draws in _elements(name, truth[name], pooled):
                 ranks[label] = _rank(true, draws, rng)
-        true_ll = self._loglik([truth[n] for n in self.free], observed)
-        draws_ll = np.array([self._loglik([thinned[n][k] for n in self.free], observed)
+        containers = tuple(observed)
+        true_ll = self._loglik(containers, [truth[n] for n in self.free], observed)
+        draws_ll = np.array([self._loglik(containers, [thinned[n][k] for n in self.free], observed)
                              for k in range(job.L)])
         ranks[LOG_LIKELIHOOD] = _rank(true_ll, draws_ll, rng)
         record.update(ranks=ranks, divergences=divergences, min_ess=round(float(min_ess), 2),
@@ -309,11 +317,11 @@ class _Compiled:
             record["failed"] = f"{divergences} divergent transitions"
         return record
 
-    def _loglik(self, values, observed) -> float:
-        args = [np.asarray(v, dtype=d) for v, d in zip(values, self.loglik_dtypes)]
-        args += [np.asarray(observed[c], dtype=d)
-                 for c, d in zip(self.containers, self.loglik_dtypes[len(values):])]
-        value = float(self.loglik(*args))
+    def _loglik(self, containers, values, observed) -> float:
+        fn, dtypes = self.loglik(containers)
+        args = [np.asarray(v, dtype=d) for v, d in zip(values, dtypes)]
+        args += [np.asarray(observed[c], dtype=d) for c, d in zip(containers, dtypes[len(values):])]
+        value = float(fn(*args))
         return value if not np.isnan(value) else -np.inf
 
 
@@ -389,7 +397,7 @@ def _compiled_for(job: _Job) -> _Compiled:
     with _COMPILED_LOCK:
         kit = _COMPILED.get(job.model_key)
         if kit is None:
-            kit = _COMPILED[job.model_key] = _Compiled(job.design, job.data, job.simulator)
+            kit = _COMPILED[job.model_key] = _Compiled(job.design, job.data)
         return kit
 
 
@@ -410,13 +418,28 @@ def _in_process(job: _Job, todo: list[int]) -> Iterator[dict]:
         yield _replicate_task(job, index)
 
 
-def _worker_start() -> None:
+def _worker_main(conn, job: _Job) -> None:
+    """A local worker process: run the replicate indices it is sent, one at a time."""
     import signal
 
     # Ctrl-C is the parent's to handle: it keeps the checkpoint consistent
     # and stops the workers.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     warnings.simplefilter("ignore")
+    while True:
+        try:
+            index = conn.recv()
+        except (EOFError, OSError):
+            return
+        if index is None:
+            return
+        try:
+            conn.send(("record", _replicate_task(job, index)))
+        except Exception as err:  # not a replicate failure (e.g. the model does not build)
+            try:
+                conn.send(("error", err))
+            except Exception:
+                conn.send(("error", RuntimeError(f"{type(err).__name__}: {err}")))
 
 
 def _lost(index: int, losses: int) -> dict:
@@ -424,55 +447,85 @@ def _lost(index: int, losses: int) -> dict:
 
 
 def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
-    """Replicates on local worker processes; a dead worker's replicates are redone."""
-    pending = list(reversed(todo))  # pop() from the end keeps index order
-    losses: dict[int, int] = {}
+    """Replicates on local worker processes, each compiling the model once.
+
+    Every worker gets one replicate at a time, so when a worker process dies
+    exactly its replicate is known: it is run again on a fresh worker (the
+    others keep their compiled model) or, after :data:`MAX_WORKER_LOSSES`
+    deaths, recorded as failed.
+    """
+    from collections import deque
+    from multiprocessing.connection import wait as wait_for
+
     # "spawn" avoids forking a parent that may already run sampler threads.
     context = get_context("spawn")
-    while pending:
-        pool = ProcessPoolExecutor(workers, mp_context=context, initializer=_worker_start)
-        running: dict[Any, int] = {}
-        broken = False
-        try:
-            while (pending or running) and not broken:
-                # A short queue: a worker's death then costs a retry to few replicates.
-                while pending and len(running) < workers + 1:
-                    index = pending.pop()
-                    running[pool.submit(_replicate_task, job, index)] = index
-                done, _ = wait(running, return_when=FIRST_COMPLETED)
-                for future in sorted(done, key=lambda f: running[f]):
-                    try:
-                        record = future.result()
-                    except BrokenProcessPool:
-                        broken = True
-                        continue
-                    del running[future]
-                    yield record
-        except BaseException:
-            _stop(pool)
-            raise
-        if broken:
-            _stop(pool)
-            for index in sorted(running.values(), reverse=True):
-                losses[index] = losses.get(index, 0) + 1
-                if losses[index] >= MAX_WORKER_LOSSES:
-                    yield _lost(index, losses[index])
-                else:
-                    pending.append(index)
-            pending.sort(reverse=True)
-        else:
-            pool.shutdown(wait=True)
+    pending = deque(todo)
+    losses: dict[int, int] = {}
+    live: dict[Any, list] = {}  # connection -> [process, replicate index or None]
+
+    def start() -> None:
+        parent, child = context.Pipe()
+        process = context.Process(target=_worker_main, args=(child, job), daemon=True)
+        process.start()
+        child.close()
+        live[parent] = [process, None]
+        hand_out(parent)
+
+    def hand_out(conn) -> None:
+        if pending:
+            index = pending.popleft()
+            conn.send(index)
+            live[conn][1] = index
+
+    graceful = False
+    try:
+        for _ in range(min(workers, len(pending))):
+            start()
+        while any(index is not None for _, index in live.values()):
+            for conn in wait_for(list(live)):
+                process, index = live[conn]
+                try:
+                    kind, payload = conn.recv()
+                except (EOFError, OSError):  # the worker process died
+                    del live[conn]
+                    conn.close()
+                    process.join(timeout=10)
+                    if index is not None:
+                        losses[index] = losses.get(index, 0) + 1
+                        if losses[index] >= MAX_WORKER_LOSSES:
+                            yield _lost(index, losses[index])
+                        else:
+                            pending.appendleft(index)
+                    if pending:
+                        start()
+                    continue
+                if kind == "error":
+                    raise payload
+                live[conn][1] = None
+                yield payload
+                hand_out(conn)
+        graceful = True
+    finally:
+        _stop_workers(live, graceful)
 
 
-def _stop(pool: ProcessPoolExecutor) -> None:
-    """Stop a pool now: cancel what waits and end the worker processes it started."""
-    processes = list(getattr(pool, "_processes", {}).values())
-    pool.shutdown(wait=False, cancel_futures=True)
-    for process in processes:
+def _stop_workers(live: dict, graceful: bool) -> None:
+    """End the worker processes this run started: ask politely when the run
+    finished, terminate them when it was interrupted."""
+    for conn, (process, _) in live.items():
+        if graceful:
+            try:
+                conn.send(None)
+            except OSError:
+                pass
+        elif process.is_alive():
+            process.terminate()
+    for conn, (process, _) in live.items():
+        process.join(timeout=10)
         if process.is_alive():
             process.terminate()
-    for process in processes:
-        process.join(timeout=10)
+            process.join(timeout=10)
+        conn.close()
 
 
 def _dask_pool(job: _Job, todo: list[int], cluster) -> Iterator[dict]:
@@ -504,7 +557,7 @@ def _dask_pool(job: _Job, todo: list[int], cluster) -> Iterator[dict]:
                                    pure=False)
             index_of[future.key] = index
             futures.append(future)
-        for future in as_completed(futures):
+        for future in as_completed(futures, loop=client.loop):
             index = index_of[future.key]
             try:
                 record = future.result()
@@ -723,9 +776,8 @@ def run_calibration(
         "L": L,
         "simulator": simulator,
     }
-    model_key = hashlib.sha256(
-        json.dumps([header["design"], header["data"], simulator]).encode()
-    ).hexdigest()
+    # One compiled model serves both simulator modes of a design on these data.
+    model_key = hashlib.sha256(json.dumps([header["design"], header["data"]]).encode()).hexdigest()
     # Chains share the cores left over by the other workers; the draws do not
     # depend on the thread count.
     cores = max(1, min(base.chains, (os.cpu_count() or 1) // workers)) if workers == 1 else 1
