@@ -218,6 +218,24 @@ def test_divergences_at_a_probability_edge_advise_a_bounded_form():
     assert "bounded formulation" in verdict.advice
 
 
+def test_a_small_positive_scale_is_not_taken_for_a_probability():
+    import pymc as pm
+
+    # spread ~ HalfNormal(0.05): every draw lies in [0, 1], yet it is a scale.
+    with pm.Model() as model:
+        pm.HalfNormal("spread", 0.05)
+        pm.Beta("share", 2.0, 2.0)
+    rng = np.random.default_rng(6)
+    posterior = {"spread": rng.uniform(0.01, 0.1, (4, 300)), "share": rng.beta(2, 2, (4, 300))}
+    fit = hand_fit(posterior)
+    fit.model = model
+    fit.idata["prior"] = xr.DataTree(xr.Dataset({
+        "spread": (("chain", "draw"), np.abs(rng.normal(0.0, 0.05, (1, 500)))),
+        "share": (("chain", "draw"), rng.beta(2, 2, (1, 500))),
+    }))
+    assert computation.probabilities(fit.idata, model) == ["share"]
+
+
 # --- near-flat ridge ----------------------------------------------------------------------
 
 

@@ -437,7 +437,7 @@ def _divergence_findings(idata, model, draws: Elements, diverging: np.ndarray) -
     funnel = _funnel_finding(scales, draws, by_element)
     if funnel is not None:
         findings.append(funnel)
-    edge = _boundary_finding(idata, mask)
+    edge = _boundary_finding(idata, model, mask)
     if edge is not None:
         findings.append(edge)
     return findings
@@ -534,20 +534,50 @@ def _funnel_finding(candidates: list[dict], draws: Elements, by_element: dict) -
     )
 
 
-def _unit_interval(idata, name: str) -> bool:
-    """True when every posterior (and prior) draw of ``name`` lies in [0, 1]."""
-    for group in ("posterior", "prior"):
-        if group in idata.children and name in idata[group].data_vars:
-            values = np.asarray(idata[group][name].values, dtype=float)
-            if values.size == 0 or np.nanmin(values) < 0 or np.nanmax(values) > 1:
-                return False
-    return True
+def probabilities(idata: xr.DataTree, model) -> list[str]:
+    """Posterior variables that live on the unit interval.
+
+    Parameters
+    ----------
+    idata : xarray.DataTree
+        Read for the ``posterior`` and, when present, ``prior`` draws.
+    model : pymc.Model or None
+        A free parameter counts when its value transform is the log-odds
+        (Beta and the like) or an interval whose draws fill (0, 1);
+        deterministics, and every variable when there is no model, count when
+        all their prior and posterior draws lie in [0, 1] and straddle 0.5 (so
+        that a small positive scale is not taken for a probability).
+
+    Returns
+    -------
+    list of str
+    """
+    free = {rv.name: rv for rv in model.free_RVs} if model is not None else {}
+    names = []
+    for name, da in idata["posterior"].data_vars.items():
+        if da.dtype.kind != "f":
+            continue
+        transform = type(model.rvs_to_transforms.get(free[name])).__name__ if name in free else ""
+        if transform == "LogOddsTransform" or (
+            transform in {"", "Interval", "IntervalTransform"} and _fills_unit_interval(idata, name)
+        ):
+            names.append(name)
+    return names
 
 
-def _boundary_finding(idata, mask: np.ndarray) -> Finding | None:
+def _fills_unit_interval(idata, name: str) -> bool:
+    groups = [g for g in ("prior", "posterior") if g in idata.children and name in idata[g].data_vars]
+    for group in groups:
+        values = np.asarray(idata[group][name].values, dtype=float)
+        if values.size == 0 or np.nanmin(values) < 0 or np.nanmax(values) > 1:
+            return False
+    reference = np.asarray(idata[groups[0]][name].values, dtype=float)
+    return bool(np.nanmin(reference) < 0.5 < np.nanmax(reference))
+
+
+def _boundary_finding(idata, model, mask: np.ndarray) -> Finding | None:
     posterior = idata["posterior"].to_dataset()
-    names = [n for n, da in posterior.data_vars.items()
-             if da.dtype.kind == "f" and _unit_interval(idata, n)]
+    names = probabilities(idata, model)
     if not names:
         return None
     bounded = elements(posterior[names])
