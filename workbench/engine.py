@@ -60,6 +60,7 @@ class Sampler:
             self.compiled = nutpie.compile_pymc_model(model)
         # shared_data is keyed by opaque ids; the container names sit on the variables.
         self.data_names = {var.name for var in self.compiled.shared_var_keys}
+        self.model_data_names = {var.name for var in model.data_vars}
 
     def run(
         self,
@@ -73,10 +74,12 @@ class Sampler:
 
         compiled = self.compiled
         if observed:
-            unknown = set(observed) - self.data_names
+            unknown = set(observed) - self.model_data_names
             if unknown:
                 raise WorkbenchError(f"model has no data container named {sorted(unknown)[0]!r}")
-            compiled = compiled.with_data(**{k: np.asarray(v) for k, v in observed.items()})
+            # A container the log-density never reads is not part of the compiled model.
+            compiled = compiled.with_data(
+                **{k: np.asarray(v) for k, v in observed.items() if k in self.data_names})
         trace = nutpie.sample(
             compiled,
             draws=settings.draws,

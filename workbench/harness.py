@@ -65,13 +65,34 @@ class CheckRun:
     versions: dict[str, str] = field(default_factory=versions)
 
 
+# Compiled models of this process, by design, relaxation and data layout:
+# refitting the same design to new outcomes (benchmarks, calibration-style
+# loops, comparisons) swaps data instead of recompiling.
+_COMPILED: dict[tuple, tuple[Any, engine.Sampler]] = {}
+
+
+def _layout(model) -> tuple:
+    return tuple(sorted((v.name, v.get_value().shape, str(v.get_value().dtype)) for v in model.data_vars))
+
+
+def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=None, **kwargs) -> engine.Fit:
+    """Fit ``design`` (optionally relaxed) to ``data``, reusing a compiled model when one fits."""
+    fresh = design.build(data, relaxation)
+    key = (design.label(), getattr(relaxation, "parameter", None), _layout(fresh))
+    if key not in _COMPILED:
+        _COMPILED[key] = (fresh, engine.Sampler(fresh))
+        return engine.fit(fresh, seed, settings, sampler=_COMPILED[key][1], **kwargs)
+    model, sampler = _COMPILED[key]
+    values = {v.name: v.get_value() for v in fresh.data_vars}
+    return engine.fit(model, seed, settings, sampler=sampler, observed=values, **kwargs)
+
+
 def _fit_relaxed(design, data, parameter: str, seed: int, settings: engine.Settings):
-    """Fit one relaxed model (runs in a worker process); returns its DataTree."""
+    """Fit one relaxed model (in a worker process or in this one); returns its DataTree."""
     warnings.simplefilter("ignore")
     relaxation = next(a.relaxation for a in design.assumptions
                       if a.relaxation and a.relaxation.parameter == parameter)
-    model = design.build(data, relaxation)
-    result = engine.fit(model, seed, settings, predictive=False)
+    result = fit_design(design, data, seed, settings, relaxation, predictive=False)
     return result.idata, result.seconds
 
 
@@ -79,8 +100,10 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
                     say: Callable[[str], None]) -> dict[str, engine.Fit]:
     """Fit every declared relaxation, in parallel worker processes.
 
-    Each expanded model is compiled once in its worker. Seeds derive from the
-    run seed and the parameter name, so results do not depend on scheduling.
+    Each expanded model is compiled once in its worker. With ``workers=1``
+    they run in this process and reuse its compiled models (the fast path for
+    many runs of one design). Seeds derive from the run seed and the
+    parameter name, so results do not depend on scheduling.
     """
     relaxations = [a.relaxation for a in design.assumptions if a.relaxation is not None]
     if not relaxations:
@@ -88,6 +111,13 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     names = [r.parameter for r in relaxations]
     seeds = engine.seed_stream(seed, *[f"relax:{n}" for n in names])
     workers = max(1, min(len(names), workers or os.cpu_count() or 1))
+    if workers == 1:
+        say(f"fitting {len(names)} relaxed model(s) in this process")
+        out = {}
+        for n in names:
+            idata, seconds = _fit_relaxed(design, data, n, seeds[f"relax:{n}"], settings)
+            out[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
+        return out
     say(f"fitting {len(names)} relaxed model(s) on {workers} process(es)")
     # Threads would share one interpreter lock and PyTensor's compile lock;
     # separate processes compile in parallel. "spawn" avoids forking a process
@@ -119,8 +149,7 @@ def run_check(
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     seeds = engine.seed_stream(seed, "main", "relaxations")
-    main = engine.fit(design.build(data), seeds["main"], settings, progress=progress,
-                      label=design.name, say=say)
+    main = fit_design(design, data, seeds["main"], settings, progress=progress, label=design.name, say=say)
     relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say) if relax else {}
     calibration = calibrate() if calibrate else None
     context = checks.Context(design, data, main, relaxed, calibration)
