@@ -272,6 +272,9 @@ class _Compiled:
                 simulated = job.design.simulate(np.random.default_rng(seeds["simulate"]), job.data,
                                                 drawn)
                 observed = {k: np.asarray(v) for k, v in job.design.observed(simulated).items()}
+                # A story that draws its own parameters (a model file's simulate) ranks those.
+                if getattr(simulated, "truth", None) is not None:
+                    truth = {name: np.asarray(simulated.truth[name], dtype=float) for name in self.free}
             else:
                 observed = {container: np.asarray(drawn[rv]) for rv, container in outcomes.items()}
         except Exception as err:  # the user's simulator: record, never abort the run
@@ -419,40 +422,49 @@ def _in_process(job: _Job, todo: list[int]) -> Iterator[dict]:
 
 
 def _worker_main(conn, job: _Job) -> None:
-    """A local worker process: run the replicate indices it is sent, one at a time."""
+    """A local worker process: compile, say so, then run the replicate indices
+    it is sent, one at a time."""
     import signal
 
     # Ctrl-C is the parent's to handle: it keeps the checkpoint consistent
     # and stops the workers.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     warnings.simplefilter("ignore")
-    while True:
-        try:
+    try:
+        _compiled_for(job)
+        conn.send(("ready", None))
+        while True:
             index = conn.recv()
-        except (EOFError, OSError):
-            return
-        if index is None:
-            return
-        try:
+            if index is None:
+                return
             conn.send(("record", _replicate_task(job, index)))
-        except Exception as err:  # not a replicate failure (e.g. the model does not build)
-            try:
-                conn.send(("error", err))
-            except Exception:
-                conn.send(("error", RuntimeError(f"{type(err).__name__}: {err}")))
+    except (EOFError, OSError):
+        return  # the parent has gone
+    except Exception as err:  # not a replicate failure: e.g. the model does not build
+        try:
+            conn.send(("error", err))
+        except Exception:
+            conn.send(("error", RuntimeError(f"{type(err).__name__}: {err}")))
 
 
 def _lost(index: int, losses: int) -> dict:
     return {"index": index, "failed": f"worker process died {losses} times while running it"}
 
 
+@dataclass
+class _Worker:
+    process: Any
+    ready: bool = False
+    index: int | None = None
+
+
 def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
     """Replicates on local worker processes, each compiling the model once.
 
-    Every worker gets one replicate at a time, so when a worker process dies
-    exactly its replicate is known: it is run again on a fresh worker (the
-    others keep their compiled model) or, after :data:`MAX_WORKER_LOSSES`
-    deaths, recorded as failed.
+    A worker takes work once it has compiled, one replicate at a time, so
+    when a worker process dies exactly its replicate is known: it is run
+    again (on a survivor or a fresh worker; survivors keep their compiled
+    model) or, after :data:`MAX_WORKER_LOSSES` deaths, recorded as failed.
     """
     from collections import deque
     from multiprocessing.connection import wait as wait_for
@@ -461,70 +473,74 @@ def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
     context = get_context("spawn")
     pending = deque(todo)
     losses: dict[int, int] = {}
-    live: dict[Any, list] = {}  # connection -> [process, replicate index or None]
+    live: dict[Any, _Worker] = {}
+    deaths = 0
 
     def start() -> None:
         parent, child = context.Pipe()
         process = context.Process(target=_worker_main, args=(child, job), daemon=True)
         process.start()
         child.close()
-        live[parent] = [process, None]
-        hand_out(parent)
+        live[parent] = _Worker(process)
 
     def hand_out(conn) -> None:
         if pending:
-            index = pending.popleft()
-            conn.send(index)
-            live[conn][1] = index
+            live[conn].index = pending.popleft()
+            conn.send(live[conn].index)
 
-    graceful = False
     try:
         for _ in range(min(workers, len(pending))):
             start()
-        while any(index is not None for _, index in live.values()):
+        while pending or any(w.index is not None for w in live.values()):
             for conn in wait_for(list(live)):
-                process, index = live[conn]
+                worker = live[conn]
                 try:
                     kind, payload = conn.recv()
                 except (EOFError, OSError):  # the worker process died
                     del live[conn]
                     conn.close()
-                    process.join(timeout=10)
+                    worker.process.join(timeout=10)
+                    deaths += 1
+                    if deaths > MAX_WORKER_LOSSES * (workers + len(todo)):
+                        raise WorkbenchError("calibration: worker processes keep dying; "
+                                             "see the system log for killed processes") from None
+                    index = worker.index
                     if index is not None:
                         losses[index] = losses.get(index, 0) + 1
                         if losses[index] >= MAX_WORKER_LOSSES:
                             yield _lost(index, losses[index])
                         else:
                             pending.appendleft(index)
-                    if pending:
+                    if pending and len(live) < workers:
                         start()
                     continue
                 if kind == "error":
                     raise payload
-                live[conn][1] = None
-                yield payload
+                if kind == "record":
+                    worker.index = None
+                    yield payload
+                worker.ready = True
                 hand_out(conn)
-        graceful = True
     finally:
-        _stop_workers(live, graceful)
+        _stop_workers(live)
 
 
-def _stop_workers(live: dict, graceful: bool) -> None:
-    """End the worker processes this run started: ask politely when the run
-    finished, terminate them when it was interrupted."""
-    for conn, (process, _) in live.items():
-        if graceful:
+def _stop_workers(live: dict) -> None:
+    """End the worker processes this run started: idle ready workers are asked
+    to stop, the others (compiling, or interrupted mid-replicate) terminated."""
+    for conn, worker in live.items():
+        if worker.ready and worker.index is None:
             try:
                 conn.send(None)
             except OSError:
                 pass
-        elif process.is_alive():
-            process.terminate()
-    for conn, (process, _) in live.items():
-        process.join(timeout=10)
-        if process.is_alive():
-            process.terminate()
-            process.join(timeout=10)
+        elif worker.process.is_alive():
+            worker.process.terminate()
+    for conn, worker in live.items():
+        worker.process.join(timeout=10)
+        if worker.process.is_alive():
+            worker.process.terminate()
+            worker.process.join(timeout=10)
         conn.close()
 
 
