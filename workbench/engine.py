@@ -139,12 +139,14 @@ def fit(
     label: str = "model",
     say: Callable[[str], None] = lambda _: None,
     predictive: bool = True,
+    prior: bool = True,
 ) -> Fit:
     """Sample prior, posterior and both predictives of ``model``.
 
     ``sampler`` reuses a compiled model (``observed`` then swaps the data).
-    ``predictive=False`` keeps only what model comparison needs (posterior,
-    sample_stats, log_likelihood, observed_data).
+    ``prior=False`` skips the prior and prior predictive; ``predictive=False``
+    keeps only what model comparison needs (posterior, sample_stats,
+    log_likelihood, observed_data).
     """
     import pymc as pm
 
@@ -158,7 +160,7 @@ def fit(
         with model:
             pm.set_data({k: np.asarray(v) for k, v in observed.items()})
     groups = {}
-    if predictive:
+    if predictive and prior:
         say(f"{label}: prior predictive")
         with model, warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -175,7 +177,8 @@ def fit(
         warnings.simplefilter("ignore")
         pm.compute_log_likelihood(idata, extend_inferencedata=True, progressbar=False)
         if predictive:
-            pm.stats.compute_log_prior(idata, extend_inferencedata=True, progressbar=False)
+            if prior:
+                pm.stats.compute_log_prior(idata, extend_inferencedata=True, progressbar=False)
             pm.sample_posterior_predictive(
                 idata, random_seed=seeds["posterior_predictive"], extend_inferencedata=True,
                 progressbar=False,

@@ -69,6 +69,9 @@ def _num(x):
 
 
 _RULES: dict[str, Callable[[Finding], Judgement]] = {}
+# Passes over all verdicts of a run, for judgements that weigh one
+# assumption's evidence against another's (e.g. symptom versus cause).
+_SETTLERS: list[Callable[[list["Verdict"]], None]] = []
 
 
 def rule(kind: str):
@@ -81,9 +84,17 @@ def rule(kind: str):
     return register
 
 
+def settle(fn):
+    """Register a pass that may revise verdicts in the light of each other."""
+    _SETTLERS.append(fn)
+    return fn
+
+
 def _load_rules() -> None:
     import workbench.rules as package
 
+    if _RULES and _SETTLERS:
+        return
     for info in pkgutil.iter_modules(package.__path__):
         importlib.import_module(f"{package.__name__}.{info.name}")
 
@@ -105,6 +116,11 @@ def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> 
     generic ``priors``, ``computation`` and ``implementation`` are added.
     """
     declared = [(k, s, "") for k, s in GENERIC_ASSUMPTIONS.items()] + list(assumptions)
+    # An assumption checked by several statistics is declared once per statistic; judge it once.
+    first: dict[str, tuple[str, str, str]] = {}
+    for entry in declared:
+        first.setdefault(entry[0], entry)
+    declared = list(first.values())
     verdicts = []
     for key, statement, default_advice in declared:
         own = [f for f in findings if f.assumption == key]
@@ -123,6 +139,9 @@ def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> 
         verdicts.append(
             Verdict(key, statement, LEVELS[worst], judged, " ".join(dict.fromkeys(advice)), strength)
         )
+    _load_rules()
+    for settler in _SETTLERS:
+        settler(verdicts)
     return rank(verdicts)
 
 

@@ -20,7 +20,9 @@ import numpy as np
 
 from workbench.checks import Context, check
 from workbench.checks.loo import loo_of
+from workbench.checks.predictive import discrepancies
 from workbench.findings import Finding
+from workbench.statistics import predictive_p_value
 
 
 def elpd_difference(expanded, original) -> tuple[float, float]:
@@ -69,4 +71,41 @@ def relaxations(context: Context) -> list[Finding]:
         findings.append(
             relaxation_finding(assumption, relaxation, context.relaxed[relaxation.parameter], context.fit)
         )
+    return findings
+
+
+@check
+def statistics_under_relaxations(context: Context) -> list[Finding]:
+    """Each assumption's statistic re-scored under every other relaxed model.
+
+    When relaxing assumption B makes assumption A's statistic look ordinary
+    again, A's alarm was a side effect of B's failure; the verdict step uses
+    this to point at the cause rather than at every symptom.
+    """
+    findings = []
+    for other in context.design.assumptions:
+        relaxation = other.relaxation
+        if relaxation is None or relaxation.parameter not in context.relaxed:
+            continue
+        relaxed = context.relaxed[relaxation.parameter]
+        if "posterior_predictive" not in relaxed.idata.children:
+            continue
+        for assumption in context.design.assumptions:
+            statistic = assumption.statistic
+            if statistic is None or assumption.key == other.key:
+                continue
+            observed, replicated = discrepancies(statistic, context.data, relaxed)
+            p = predictive_p_value(observed, replicated, statistic.sides)
+            findings.append(
+                Finding(
+                    assumption=assumption.key,
+                    kind="ppc_under_relaxation",
+                    check=f"ppc:{statistic.name}|{relaxation.parameter}",
+                    value=float(np.nanmean(observed)),
+                    p_value=p,
+                    detail=(f"Under the model that relaxes {other.key} ({relaxation.parameter}), "
+                            f"'{statistic.name}' has p = {p:.3g}."),
+                    numbers={"relaxation_of": other.key},
+                )
+            )
     return findings

@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 from workbench.findings import Finding
-from workbench.verdicts import Judgement, rule
+from workbench.verdicts import BROKEN, DOUBTFUL, Judgement, Verdict, rule, settle
 
 # Posterior predictive p-values are conservative (concentrated near 0.5 when
 # the model holds; Gelman et al. 2013, BDA3 sec. 6.3), so these cut-offs are
@@ -56,3 +56,41 @@ def expansion(f: Finding) -> Judgement:
         return Judgement(1, f"The data lean towards a non-null {name}; the gain in prediction "
                             f"is modest.", strength=strength)
     return Judgement(0, f"The expanded model does not need {name} away from its null.")
+
+
+@rule("ppc_under_relaxation")
+def statistic_under_relaxation(f: Finding) -> Judgement:
+    # Read by the side-effect pass below; on its own it argues for nothing.
+    return Judgement(0, "")
+
+
+def _relaxation_gain(verdict: Verdict) -> float | None:
+    gains = [f.numbers["elpd_diff"] for f, _ in verdict.evidence if f.kind == "relaxation"]
+    return max(gains) if gains else None
+
+
+@settle
+def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
+    """Demote broken assumptions whose alarm is explained by a stronger failure.
+
+    When several assumptions look broken, the one whose relaxation improves
+    prediction most is taken as the cause. Another broken assumption is a
+    symptom of it when its own relaxation gains less and its targeted
+    statistic looks ordinary under the cause's relaxed model; it becomes
+    doubtful with advice to revisit it after fixing the cause.
+    """
+    broken = [v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None]
+    if len(broken) < 2:
+        return
+    cause = max(broken, key=_relaxation_gain)
+    cause_gain = _relaxation_gain(cause)
+    for v in broken:
+        if v is cause or _relaxation_gain(v) >= cause_gain:
+            continue
+        under = [f.p_value for f, _ in v.evidence
+                 if f.kind == "ppc_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
+        if under and min(under) >= PPC_DOUBTFUL_P:
+            v.verdict = DOUBTFUL
+            v.advice = (f"Revisit after addressing '{cause.key}': once that assumption is relaxed "
+                        f"this one's statistic looks ordinary (p = {min(under):.2f}).")
+            v.strength = 0.0
