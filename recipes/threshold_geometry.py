@@ -268,13 +268,14 @@ def dispersion_stat(data, outcomes, draws):
     return pearson_dispersion(outcomes["y"], mean, var)
 
 
-def _relaxation(parameter, meaning, null, negligible):
+def _relaxation(parameter, meaning, null, negligible, planted):
     return Relaxation(
         parameter=parameter,
         meaning=meaning,
         build=partial(build_model, relax=parameter),
         null=null,
         negligible=negligible,
+        planted=planted,
     )
 
 
@@ -348,7 +349,8 @@ RECIPE = Recipe(
             ),
             relaxation=_relaxation(
                 "spread_slope", "log spread may change linearly with log distance",
-                null=0.0, negligible=0.1,
+                # Spread growing as distance^0.4: a length error that adds to the angle.
+                null=0.0, negligible=0.1, planted=0.4,
             ),
             advice="Let the spread depend on distance (e.g. spread * distance^slope) or add a "
                    "second error source that grows with distance, such as a length error.",
@@ -364,7 +366,8 @@ RECIPE = Recipe(
             ),
             relaxation=_relaxation(
                 "extra_failure", "a constant share of attempts fails whatever the angle",
-                null=0.0, negligible=0.01,
+                # One attempt in twenty lost to something other than aim.
+                null=0.0, negligible=0.01, planted=0.05,
             ),
             advice="Add a failure mode that does not depend on the angle (a constant or "
                    "distance-dependent extra failure probability) and ask what causes it.",
@@ -380,7 +383,8 @@ RECIPE = Recipe(
             ),
             relaxation=_relaxation(
                 "overdispersion", "attempts within a row share a common offset (beta-binomial)",
-                null=0.0, negligible=0.005,
+                # Within-row correlation 0.01: variance about 3x binomial at 250 attempts.
+                null=0.0, negligible=0.005, planted=0.01,
             ),
             advice="Rows vary more than binomial: add a row- or session-level effect "
                    "(beta-binomial or a random effect) or a group column for who attempted.",

@@ -107,10 +107,10 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     many runs of one design). Seeds derive from the run seed and the
     parameter name, so results do not depend on scheduling.
     """
-    relaxations = [a.relaxation for a in design.assumptions if a.relaxation is not None]
-    if not relaxations:
+    names = list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
+                               if a.relaxation is not None and a.relaxation.applies_to(design.options)))
+    if not names:
         return {}
-    names = [r.parameter for r in relaxations]
     seeds = engine.seed_stream(seed, *[f"relax:{n}" for n in names])
     workers = max(1, min(len(names), workers or os.cpu_count() or 1))
     if workers == 1:

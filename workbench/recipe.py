@@ -97,9 +97,11 @@ class Relaxation:
 
     ``build(data, options, prior)`` returns the expanded PyMC model; its extra
     parameter is ``parameter`` (declared with its prior among the recipe's
-    parameters) and ``null`` is the value that restores the assumption. ``negligible`` is the distance from the null below which the
-    expansion makes no practical difference; the verdict asks how much
-    posterior mass lies beyond it.
+    parameters) and ``null`` is the value that restores the assumption.
+    ``negligible`` is the distance from the null below which the expansion
+    makes no practical difference; the verdict asks how much posterior mass
+    lies beyond it. ``planted`` is a realistic violation strength: the value
+    benchmarks and tests give the parameter when they plant this fault.
     """
 
     parameter: str
@@ -110,6 +112,7 @@ class Relaxation:
     # applies(options) -> False when the design's options already relax the
     # assumption (e.g. an estimated eventual share); None means always.
     applies: Callable[[Mapping[str, Any]], bool] | None = None
+    planted: float | None = None
 
     def applies_to(self, options: Mapping[str, Any]) -> bool:
         """Whether this expansion means anything under the given options."""
