@@ -1,0 +1,55 @@
+"""The diagnosis names the broken assumption: planted faults, prior conflict.
+
+A small, fast version of benchmarks/diagnosis_rates.py (which runs many seeds):
+one clean table and one table per planted fault, simulated by the recipe's
+own simulator, must put the planted assumption first and mark it broken
+without marking any other assumption broken.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from recipes.threshold_geometry import RECIPE
+from workbench import harness, rates
+from workbench.recipe import make_design
+
+SCENARIOS = rates.scenarios(RECIPE)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("scenario", list(SCENARIOS))
+def test_planted_fault_is_named_and_nothing_else_is_broken(scenario, fast_settings):
+    tally = rates.run_scenario(RECIPE, scenario, SCENARIOS[scenario], seeds=[101], settings=fast_settings)
+    assert tally.runs == 1, tally.failures
+    assert tally.other_broken == 0
+    if scenario != rates.CLEAN:
+        assert tally.right_broken == 1
+
+
+@pytest.mark.slow
+def test_report_on_a_planted_fault_lists_the_planted_assumption_first(fast_settings):
+    design = make_design(RECIPE, {"clearance": "0.35"}, {})
+    demo = RECIPE.demo(np.random.default_rng(5))
+    base = design.validate(demo.table)
+    data = design.simulate(np.random.default_rng(6), base, {**demo.truth, "extra_failure": 0.05})
+    run = harness.run_check(design, data, harness.DataInfo("sim", "", data.rows), seed=2,
+                            settings=fast_settings, workers=1)
+    assert run.verdicts[0].key == "angle_only" and run.verdicts[0].verdict == "broken"
+    assert "failure" in run.verdicts[0].advice
+
+
+@pytest.mark.slow
+def test_prior_that_excludes_the_truth_breaks_the_priors_assumption(fast_settings):
+    # Truth spread 0.03 rad; the prior puts nearly all its mass near 0.0009 rad.
+    design = make_design(RECIPE, {"clearance": "0.25"}, {"spread": "lognormal(-7,0.1)"})
+    distance = np.array([1.0, 2, 3, 4, 6, 8, 10, 12])
+    base = design.validate(pd.DataFrame({"distance": distance, "attempts": 200, "successes": 0}))
+    data = design.simulate(np.random.default_rng(8), base, {"spread": 0.03})
+    run = harness.run_check(design, data, harness.DataInfo("sim", "", data.rows), seed=4,
+                            settings=fast_settings, relax=False)
+    verdict = next(v for v in run.verdicts if v.key == "priors")
+    assert verdict.verdict == "broken"
+    assert "spread" in verdict.advice or any("spread" in f.detail for f, _ in verdict.evidence)
