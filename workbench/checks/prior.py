@@ -101,8 +101,9 @@ def prior_sensitivity(context: Context) -> list[Finding]:
         ]
     findings = []
     for name in names:
-        ps = np.atleast_1d(np.asarray(prior[name].values, dtype=float))
-        ls = np.atleast_1d(np.asarray(likelihood[name].values, dtype=float))
+        # Flat over every dimension: a parameter may have several (group x outcome).
+        ps = np.asarray(prior[name].values, dtype=float).ravel()
+        ls = np.asarray(likelihood[name].values, dtype=float).ravel()
         i = int(np.nanargmax(ps)) if np.isfinite(ps).any() else 0
         label = name if ps.size == 1 else f"{name}[{i}]"
         findings.append(
