@@ -1,0 +1,259 @@
+"""The report in a real browser: Debian's Chromium driven by Playwright.
+
+One checked run (no relaxations, few draws) serves every test. Each page is
+opened with every request routed: anything that is not ``file://`` or
+``data:`` is refused and fails the test, so a report that reached for the
+network would be caught here. Screenshots and the printed PDF are kept under
+``test-artifacts/`` (git-ignored) for a person to look at.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+
+import pytest
+
+from workbench.cli import main
+from workbench.report.html import BADGES
+
+CHROMIUM = Path("/usr/bin/chromium")
+# Flags for a headless run with no sandbox (root in a container) and no
+# background traffic of the browser's own (updates, sync, QUIC probes).
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                 "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+ARTIFACTS = Path(__file__).resolve().parents[1] / "test-artifacts"
+PHONE = {"width": 375, "height": 812}
+DESKTOP = {"width": 1280, "height": 900}
+# A section printed on a new page starts within this distance of the page's
+# top edge (points): Chromium's default print margin plus a heading's margin.
+TOP_SLACK_PT = 72.0
+SECTIONS = ("diagnosis", "evidence", "fit", "sampler", "loo", "manifest")
+
+pytestmark = [
+    pytest.mark.browser,
+    # CI installs Chromium (.ci/run), so there a missing browser fails instead of skipping.
+    pytest.mark.skipif(not CHROMIUM.exists() and not os.environ.get("CI"),
+                       reason="Debian's chromium is not installed at /usr/bin/chromium "
+                              "(apt-get install chromium chromium-driver)"),
+]
+
+
+# --- fixtures ------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def run_folder(tmp_path_factory, throwing_csv):
+    out = tmp_path_factory.mktemp("browser") / "run"
+    code = main(["check", "threshold-geometry", "--data", throwing_csv, "--set", "clearance=0.25",
+                 "--out", str(out), "--seed", "5", "--draws", "200", "--tune", "200", "--no-relax",
+                 "--quiet"])
+    assert code == 0
+    return out
+
+
+@pytest.fixture(scope="module")
+def browser():
+    from playwright.sync_api import sync_playwright
+
+    assert CHROMIUM.exists(), "CI must install Debian's chromium (see .ci/run)"
+    with sync_playwright() as p:
+        instance = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        yield instance
+        instance.close()
+
+
+class Visit:
+    """A page opened with every request routed and every complaint recorded."""
+
+    def __init__(self, browser, path: Path, viewport: dict):
+        self.context = browser.new_context(viewport=viewport)
+        self.page = self.context.new_page()
+        self.requests: list[str] = []
+        self.refused: list[str] = []
+        self.errors: list[str] = []
+        self.page.on("console", lambda m: m.type == "error" and self.errors.append(m.text))
+        self.page.on("pageerror", lambda e: self.errors.append(str(e)))
+        self.page.on("dialog", lambda d: (self.errors.append(f"dialog: {d.message}"), d.dismiss()))
+        self.page.on("request", lambda r: self.requests.append(r.url))
+        self.page.route("**/*", self._route)
+        self.page.goto(path.resolve().as_uri())
+
+    def _route(self, route):
+        url = route.request.url
+        if url.startswith(("file://", "data:")):
+            route.continue_()
+        else:
+            self.refused.append(url)
+            route.abort()
+
+    def close(self):
+        self.context.close()
+
+
+@pytest.fixture
+def visit(browser):
+    opened = []
+
+    def open_page(path: Path, viewport: dict = DESKTOP) -> Visit:
+        opened.append(Visit(browser, path, viewport))
+        return opened[-1]
+
+    yield open_page
+    for v in opened:
+        v.close()
+
+
+def artifact(name: str) -> Path:
+    ARTIFACTS.mkdir(exist_ok=True)
+    return ARTIFACTS / name
+
+
+# --- loading -------------------------------------------------------------------------
+
+
+def test_report_loads_without_console_errors(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    v.page.wait_for_load_state("load")
+    assert v.errors == []
+
+
+def test_report_makes_no_network_request(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    v.page.wait_for_load_state("load")
+    assert v.refused == []
+    assert all(url.startswith(("file://", "data:")) for url in v.requests), v.requests
+
+
+def test_every_figure_is_visible_with_a_size(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    images = v.page.locator("img")
+    assert images.count() >= 4  # fit, PPC statistics, ranks, pairs, Pareto k
+    for i in range(images.count()):
+        img = images.nth(i)
+        img.scroll_into_view_if_needed()
+        assert img.is_visible()
+        size = img.evaluate("e => [e.complete, e.naturalWidth, e.naturalHeight]")
+        assert size[0] and size[1] > 0 and size[2] > 0, img.get_attribute("alt")
+        box = img.bounding_box()
+        assert box["width"] > 0 and box["height"] > 0
+    v.page.screenshot(path=artifact("report-desktop.png"), full_page=True)
+
+
+# --- order and links -------------------------------------------------------------------
+
+
+def test_verdict_section_comes_first_and_in_the_first_screen(run_folder, visit):
+    for viewport in (DESKTOP, PHONE):
+        v = visit(run_folder / "report.html", viewport)
+        ids = v.page.eval_on_selector_all("main > section", "s => s.map(e => e.id)")
+        assert ids[0] == "diagnosis"
+        assert list(SECTIONS) == [i for i in ids if i in SECTIONS]
+        top = v.page.eval_on_selector("#diagnosis", "e => e.getBoundingClientRect().top")
+        assert 0 <= top < viewport["height"]
+
+
+def test_each_assumption_links_to_its_evidence(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    links = v.page.locator("table.verdicts a[href^='#']")
+    keys = [links.nth(i).get_attribute("href")[1:] for i in range(links.count())]
+    assert len(keys) == 6  # priors, computation, implementation and the recipe's three
+    for i, anchor in enumerate(keys):
+        v.page.evaluate("window.scrollTo(0, 0)")
+        links.nth(i).click()
+        v.page.wait_for_function("h => location.hash === h", arg="#" + anchor)
+        target = v.page.evaluate("() => document.querySelector(':target')?.id")
+        assert target == anchor
+        top = v.page.eval_on_selector(f"#{anchor}", "e => e.getBoundingClientRect().top")
+        assert -1 <= top < DESKTOP["height"] / 2, f"#{anchor} not scrolled into view (top {top})"
+
+
+def test_back_link_returns_to_the_diagnosis(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    v.page.locator("article.assumption a[href='#diagnosis']").last.click()
+    v.page.wait_for_function("() => location.hash === '#diagnosis'")
+    top = v.page.eval_on_selector("#diagnosis", "e => e.getBoundingClientRect().top")
+    assert abs(top) <= 1
+
+
+# --- small screens, greyscale and print -------------------------------------------------
+
+
+def test_verdict_table_fits_a_phone_screen(run_folder, visit):
+    v = visit(run_folder / "report.html", PHONE)
+    page_width, inner = v.page.evaluate(
+        "() => [document.scrollingElement.scrollWidth, window.innerWidth]")
+    assert page_width <= inner
+    table = v.page.eval_on_selector("table.verdicts", "t => [t.scrollWidth, t.clientWidth]")
+    assert table[0] <= table[1]
+    v.page.screenshot(path=artifact("report-phone.png"), full_page=False)
+
+
+def test_verdict_states_differ_in_words_and_shapes_without_colour(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    v.page.add_style_tag(content="html { filter: grayscale(1); }")
+    # Every badge on the page says its verdict in a word and a shape.
+    for cls, text in v.page.eval_on_selector_all(
+            ".badge", "bs => bs.map(b => [b.classList[1], b.textContent.trim()])"):
+        assert text == f"{BADGES[cls][0]} {BADGES[cls][1]}"
+    # The stylesheet draws each of the four states with its own border,
+    # so even a badge whose word is cut off stays distinguishable in grey.
+    borders = v.page.evaluate(
+        """states => states.map(s => {
+            const b = document.createElement('span');
+            b.className = 'badge ' + s; b.textContent = 'x';
+            document.body.appendChild(b);
+            const st = getComputedStyle(b);
+            return st.borderTopStyle + ' ' + st.borderTopWidth;
+        })""", list(BADGES))
+    assert len(set(borders)) == len(BADGES), dict(zip(BADGES, borders))
+    v.page.locator("#diagnosis").screenshot(path=artifact("report-greyscale.png"))
+
+
+def _pdf_objects(pdf: bytes) -> dict[int, bytes]:
+    return {int(n): body for n, body in re.findall(rb"(?s)(\d+) 0 obj\s*(.*?)endobj", pdf)}
+
+
+def _pdf_pages(objects: dict[int, bytes], node: int) -> list[int]:
+    """Page object numbers in reading order, walking the page tree."""
+    body = objects[node]
+    kids = re.search(rb"/Kids\s*\[([^\]]*)\]", body)
+    if kids is None:
+        return [node]
+    return [p for k in re.findall(rb"(\d+) 0 R", kids.group(1)) for p in _pdf_pages(objects, int(k))]
+
+
+def named_destinations(pdf: bytes) -> dict[str, tuple[int, float, float]]:
+    """``{id: (page number from 1, y of the target, page height)}`` of a Chromium PDF.
+
+    Chromium writes a named destination for every element an in-page link
+    points at (PDF 1.7, section 12.3.2.3: ``[page /XYZ left top zoom]``).
+    """
+    objects = _pdf_objects(pdf)
+    catalog = next(b for b in objects.values() if b"/Type /Catalog" in b)
+    root = int(re.search(rb"/Pages (\d+) 0 R", catalog).group(1))
+    pages = _pdf_pages(objects, root)
+    dests = objects[int(re.search(rb"/Dests (\d+) 0 R", catalog).group(1))]
+    heights = {}
+    for p in pages:
+        box = re.search(rb"/MediaBox \[([-\d. ]+)\]", objects[p])
+        heights[p] = float(box.group(1).split()[3])
+    out = {}
+    for name, page, top in re.findall(rb"/([\w.-]+) \[(\d+) 0 R /XYZ [-\d.]+ ([-\d.]+)", dests):
+        out[name.decode()] = (pages.index(int(page)) + 1, float(top), heights[int(page)])
+    return out
+
+
+def test_print_starts_each_section_on_a_new_page(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    pdf = v.page.pdf(format="A4")
+    artifact("report.pdf").write_bytes(pdf)
+    dests = named_destinations(pdf)
+    assert set(SECTIONS) <= set(dests), sorted(dests)
+    pages = [dests[s][0] for s in SECTIONS]
+    assert pages[0] == 1  # the diagnosis follows the title on the first page
+    assert pages == sorted(set(pages)), dict(zip(SECTIONS, pages))  # one page each, in order
+    for section in SECTIONS[1:]:
+        _, top, height = dests[section]
+        assert top >= height - TOP_SLACK_PT, f"section {section} starts {height - top:.0f} pt below the page top"
