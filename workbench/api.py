@@ -89,6 +89,8 @@ def check(
         raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
     design = resolve_design(target, options, priors, recipe_folders)
     dataset, info = load_data(design, data)
+    if sbc and hasattr(design, "check_simulator"):
+        design.check_simulator(dataset)  # a model file's story: one clear line before any fit
     folder = writers.run_folder(str(out) if out else None, design.label(), force) if write else None
     settings = settings or engine.Settings()
     calibrate = None

@@ -25,7 +25,36 @@ ALERT = "#a23b2a"
 FAINT = "#9aa3ad"
 
 
+# Figures label things with user text (group names, outcome columns); a label
+# longer than this has no room in a figure, and the report's tables keep it whole.
+MAX_FIGURE_TEXT = 60
+
+
+def literal_text():
+    """Context in which new figures show text as written: no mathtext between
+    dollar signs (an unknown command there would abort the drawing).
+
+    Example
+    -------
+    >>> with literal_text():
+    ...     fig, ax = plt.subplots(); ax.set_title("$5 & $\\undefined$")
+    """
+    return matplotlib.rc_context({"text.parse_math": False})
+
+
+def shorten_texts(fig) -> None:
+    """Cut every text of ``fig`` longer than :data:`MAX_FIGURE_TEXT` characters."""
+    import matplotlib.text
+
+    for text in fig.findobj(matplotlib.text.Text):
+        content = text.get_text()
+        if len(content) > MAX_FIGURE_TEXT:
+            text.set_text(content[: MAX_FIGURE_TEXT - 1] + "…")
+
+
 def to_data_uri(fig) -> str:
+    """The figure as an inline PNG ``data:`` URI (long labels shortened)."""
+    shorten_texts(fig)
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=110, bbox_inches="tight")
     plt.close(fig)
