@@ -130,7 +130,8 @@ def figures(run) -> dict[str, dict]:
 
 def render(run, summary: dict, command: str = "") -> str:
     """The report as one HTML string."""
-    figs = figures(run)
+    with plots.literal_text():  # group and outcome names are user text, not mathtext
+        figs = figures(run)
     recipe = getattr(run.design, "recipe", None)
     verdicts = []
     for v in run.verdicts:
