@@ -23,11 +23,6 @@ import xarray as xr
 from workbench.errors import WorkbenchError
 
 
-# PyMC announces every sampling step on its logger; the workbench reports
-# progress itself.
-logging.getLogger("pymc").setLevel(logging.WARNING)
-
-
 @dataclass(frozen=True)
 class Settings:
     """How much to sample. The defaults suit a report; tests use fewer draws."""
@@ -150,6 +145,8 @@ def fit(
     """
     import pymc as pm
 
+    # PyMC resets its logger on import and then announces every sampling step.
+    logging.getLogger("pymc").setLevel(logging.WARNING)
     start = time.perf_counter()
     seeds = seed_stream(seed, "prior", "posterior", "posterior_predictive")
     if sampler is None:

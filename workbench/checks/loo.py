@@ -23,6 +23,11 @@ from workbench.checks import Context, check
 from workbench.findings import Finding
 
 
+# Size of the noise that breaks exact ties in log-likelihood draws: far below
+# the 0.1 elpd resolution anyone reads, far above float64 rounding of typical values.
+TIE_BREAK = 1e-9
+
+
 def pareto_k_threshold(draws: int) -> float:
     """Sample-size dependent k threshold, min(1 - 1/log10(S), 0.7) (Vehtari et al. 2024)."""
     return float(min(1.0 - 1.0 / np.log10(draws), 0.7))
@@ -33,7 +38,9 @@ def loo_of(fit):
 
     A row whose log-likelihood is the same in every draw (a probability
     pinned at its bound) gets uniform weights and k = 0: leaving it out does
-    not change the posterior weights, and PSIS cannot fit a tail to a constant.
+    not change the posterior weights. Exact ties in the other rows (a
+    probability pinned in some draws only) are broken by noise far below any
+    elpd resolution, because PSIS cannot fit a tail made of equal values.
     """
     import arviz as az
     import xarray as xr
@@ -45,14 +52,11 @@ def loo_of(fit):
     sample_dims = ["chain", "draw"]
     n = ll.sizes["chain"] * ll.sizes["draw"]
     constant = (ll.max(sample_dims) - ll.min(sample_dims)) == 0
+    # Seeded so the same fit always gives the same LOO.
+    jitter = xr.DataArray(np.random.default_rng(0).normal(0, TIE_BREAK, ll.shape), dims=ll.dims, coords=ll.coords)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        if not bool(constant.any()):
-            return az.loo(idata, pointwise=True, var_name=names[0])
-        # Break exact ties only so PSIS runs; those rows are overwritten below.
-        jitter = xr.DataArray(np.random.default_rng(0).normal(0, 1e-9, ll.shape), dims=ll.dims, coords=ll.coords)
-        safe = xr.where(constant, ll + jitter, ll)
-        log_weights, k = safe.azstats.psislw(r_eff=_get_r_eff(idata, n), dim=sample_dims)
+        log_weights, k = (ll + jitter).azstats.psislw(r_eff=_get_r_eff(idata, n), dim=sample_dims)
         log_weights = xr.where(constant, -np.log(n), log_weights).transpose(*ll.dims)
         k = xr.where(constant, 0.0, k)
         return az.loo(idata, pointwise=True, var_name=names[0], log_weights=log_weights, pareto_k=k)
