@@ -15,6 +15,9 @@ from workbench.errors import DataError, OptionError
 from workbench.recipe import DemoScenario, make_design
 
 SETTINGS = engine.Settings(draws=300, tune=300, prior_draws=200, chains=2)
+# These graphs are evaluated a few times only: compiling them to C would cost more
+# than running them in Python.
+QUICK = "FAST_COMPILE"
 
 
 def small_table():
@@ -30,6 +33,10 @@ def small_table():
 def validated(table, **options):
     design = make_design(RECIPE, {"outcomes": "fixed,scrapped", "family": "weibull", **options}, {})
     return design, RECIPE.validate(table, design.options)
+
+
+def finite_logp(model) -> bool:
+    return bool(np.isfinite(model.compile_logp(mode=QUICK)(model.initial_point())))
 
 
 # --- bad input: one clear line each ------------------------------------------------------------
@@ -76,7 +83,7 @@ def test_model_cell_probabilities_follow_the_mixture_story():
     share = np.array([0.55, 0.45])
     scale, shape = np.array([0.7, 1.6]), np.array([1.2, 2.0])
     model = pm.do(design.build(data), {"share_weight": share, "scale": scale, "shape": shape})
-    p = pm.draw(model["y"].owner.inputs[-1])
+    p = pm.draw(model["y"].owner.inputs[-1], mode=QUICK)
 
     def c(age):
         # Reference: scipy.stats.lognorm CDF with s = 1 / shape (Larson-Dinse mixture).
@@ -107,7 +114,8 @@ def test_simulated_cell_frequencies_match_the_probabilities():
 def test_open_share_under_resolve_estimate_completes_the_shares():
     design, data = validated(small_table(), resolve="estimate")
     model = design.build(data)
-    share, open_share = pm.draw([model["share"], model["open_share"]], draws=200, random_seed=2)
+    share, open_share = pm.draw([model["share"], model["open_share"]], draws=200, random_seed=2,
+                                mode=QUICK)
     np.testing.assert_allclose(share.sum(axis=1) + open_share, 1.0, atol=1e-12)
     assert np.all(open_share > 0)
 
@@ -122,7 +130,7 @@ def test_each_relaxed_model_adds_its_parameter(parameter):
     design, data = validated(small_table())
     relaxation = next(a.relaxation for a in RECIPE.assumptions if a.relaxation.parameter == parameter)
     model = design.build(data, relaxation)
-    assert parameter in model.named_vars and np.all(np.isfinite(list(model.point_logps().values())))
+    assert parameter in model.named_vars and finite_logp(model)
 
 
 def test_unresolved_plateau_statistic_falls_when_units_never_end():

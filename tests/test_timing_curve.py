@@ -15,6 +15,9 @@ from workbench.errors import DataError, OptionError
 from workbench.recipe import DemoScenario, make_design
 
 SETTINGS = engine.Settings(draws=300, tune=300, prior_draws=200, chains=2)
+# These graphs are evaluated a few times only: compiling them to C would cost more
+# than running them in Python.
+QUICK = "FAST_COMPILE"
 
 
 def small_table():
@@ -29,6 +32,10 @@ def small_table():
 def validated(table, **options):
     design = make_design(RECIPE, {"family": "weibull", **options}, {})
     return design, RECIPE.validate(table, design.options)
+
+
+def finite_logp(model) -> bool:
+    return bool(np.isfinite(model.compile_logp(mode=QUICK)(model.initial_point())))
 
 
 # --- bad input: one clear line each ------------------------------------------------------------
@@ -113,7 +120,7 @@ def test_model_cell_probabilities_follow_the_story():
     design, data = validated(small_table(), family="gamma")
     ref = data.extra["age_ref"]
     model = pm.do(design.build(data), {"scale": 0.8, "shape": 1.7, "eventual": 0.6})
-    p = pm.draw(model["y"].owner.inputs[-1])
+    p = pm.draw(model["y"].owner.inputs[-1], mode=QUICK)
     c = {a: scipy_cumulative(a / ref, 0.8, 1.7, 0.6) for a in (2.0, 3.0, 5.0, 9.0)}
     expected = np.array([
         [c[2.0], c[5.0] - c[2.0], c[9.0] - c[5.0], 1 - c[9.0]],
@@ -260,7 +267,7 @@ def test_each_relaxed_model_adds_its_parameter(parameter):
     design, data = validated(small_table(), eventual="all")
     relaxation = next(a.relaxation for a in RECIPE.assumptions if a.relaxation.parameter == parameter)
     model = design.build(data, relaxation)
-    assert parameter in model.named_vars and np.all(np.isfinite(list(model.point_logps().values())))
+    assert parameter in model.named_vars and finite_logp(model)
 
 
 def test_demo_table_validates_and_its_truth_names_parameters():

@@ -1,0 +1,247 @@
+"""stage-transitions: validation, the chain in NumPy and PyMC, and absorption shares."""
+
+import warnings
+
+import matplotlib
+import numpy as np
+import pandas as pd
+import pymc as pm
+import pytest
+
+from recipes.stage_transitions import DEMO_TRUTH, RECIPE, absorption_shares
+from workbench import engine, registry
+from workbench.errors import DataError, OptionError
+from workbench.recipe import DemoScenario, make_design
+
+SETTINGS = engine.Settings(draws=300, tune=300, prior_draws=200, chains=2)
+# These graphs are evaluated a few times only: compiling them to C would cost more
+# than running them in Python.
+QUICK = "FAST_COMPILE"
+STAGES = "new,active,done,dropped"
+TRUE_P = np.array([
+    [0.50, 0.35, 0.00, 0.15],
+    [0.00, 0.60, 0.30, 0.10],
+    [0.00, 0.00, 1.00, 0.00],
+    [0.00, 0.00, 0.00, 1.00],
+])
+
+
+def small_table():
+    return pd.DataFrame({
+        "cohort": ["A", "A", "A", "B", "B"],
+        "period": [0, 1, 2, 1, 2],
+        "new": [100, 50, 20, 80, 40],
+        "active": [0, 35, 45, 0, 28],
+        "done": [0, 0, 15, 0, 0],
+        "dropped": [0, 15, 20, 0, 12],
+    })
+
+
+def validated(table, **options):
+    design = make_design(RECIPE, {"stages": STAGES, "absorbing": "done,dropped", **options}, {})
+    return design, RECIPE.validate(table, design.options)
+
+
+def finite_logp(model) -> bool:
+    return bool(np.isfinite(model.compile_logp(mode=QUICK)(model.initial_point())))
+
+
+# --- bad input: one clear line each ------------------------------------------------------------
+
+
+def one_line_error(kind, table, **options):
+    with pytest.raises(kind) as caught:
+        validated(table, **options)
+    message = str(caught.value)
+    assert "\n" not in message
+    return message
+
+
+def test_a_changing_total_is_refused():
+    table = small_table()
+    table.loc[1, "new"] = 45
+    assert "row 2: stages sum to 95 but to 100 in row 1" in one_line_error(DataError, table)
+
+
+def test_a_gap_in_periods_is_refused():
+    table = small_table()
+    table.loc[2, "period"] = 4
+    assert "jumps from period 1 (row 2) to 4" in one_line_error(DataError, table)
+
+
+def test_a_repeated_period_is_refused():
+    table = small_table()
+    table.loc[4, "period"] = 1
+    assert "already has period 1" in one_line_error(DataError, table)
+
+
+def test_an_end_stage_that_loses_units_is_refused():
+    table = small_table()
+    table.loc[2, ["dropped", "active"]] = [10, 55]
+    assert "column 'dropped' row 3: 10 < 15" in one_line_error(DataError, table)
+
+
+def test_an_end_stage_outside_the_stages_is_an_option_error():
+    assert "option 'absorbing'" in one_line_error(OptionError, small_table(), absorbing="done,lost")
+
+
+def test_every_stage_an_end_stage_is_an_option_error():
+    assert "at least one stage that is not an end stage" in one_line_error(
+        OptionError, small_table(), absorbing=STAGES)
+
+
+def test_a_fractional_period_is_refused():
+    table = small_table()
+    table["period"] = table["period"].astype(float)
+    table.loc[0, "period"] = 0.5
+    assert "column 'period' row 1: expected a whole number" in one_line_error(DataError, table)
+
+
+def test_a_table_without_any_move_is_refused():
+    table = small_table().iloc[[0, 3]]
+    assert "at least one cohort seen in two consecutive periods" in one_line_error(DataError, table)
+
+
+# --- the chain: PyMC equals NumPy equals the simulator -------------------------------------------
+
+
+def test_forward_moves_allow_staying_later_stages_and_end_stages_only():
+    _, data = validated(small_table())
+    allowed = data.extra["allowed"]
+    assert allowed[0].all() and not allowed[1, 0] and allowed[1, 1:].all()
+    np.testing.assert_array_equal(allowed[2:], np.eye(4, dtype=bool)[2:])
+
+
+def test_model_expected_shares_are_previous_shares_times_the_matrix():
+    design, data = validated(small_table())
+    weights = np.array([0.5, 0.35, 0.0001, 0.15, 0.6, 0.3, 0.1])  # allowed moves, row by row
+    model = pm.do(design.build(data), {"transition_weight": weights})
+    expected, transition = pm.draw([model["expected"], model["transition"]], mode=QUICK)
+    previous = RECIPE.observed(data)["previous"]
+    np.testing.assert_allclose(transition[:2].sum(axis=1), 1.0)
+    np.testing.assert_allclose(expected, previous / previous.sum(axis=1, keepdims=True) @ transition,
+                               atol=1e-8)
+
+
+def test_simulated_means_follow_powers_of_the_matrix():
+    # Mean stage counts of a Markov chain after t moves: n_0 P^t (Kemeny and Snell 1960, II).
+    rows = [{"cohort": "A", "period": t, "new": 200, "active": 0, "done": 0, "dropped": 0} for t in range(5)]
+    design, data = validated(pd.DataFrame(rows))
+    rng = np.random.default_rng(9)
+    reps = 300
+    stages = STAGES.split(",")
+    total = np.zeros((5, 4))
+    for _ in range(reps):
+        sim = design.simulate(rng, data, {"transition": TRUE_P})
+        total += np.column_stack([sim[name] for name in stages])
+    mean = np.array([200 * np.linalg.matrix_power(TRUE_P, t)[0] for t in range(5)])
+    se = np.sqrt(200 * (mean / 200) * (1 - mean / 200) / reps)
+    # Four binomial standard errors per cell.
+    assert np.all(np.abs(total / reps - mean) <= 4 * se + 1e-9)
+
+
+@pytest.mark.parametrize("key,fault", [("no_missing_exit", {"dormant": 0.1}),
+                                       ("independent_units", {"overdispersion": 0.1})])
+def test_statistic_rises_when_a_fault_is_planted(key, fault):
+    rows = [{"cohort": f"c{c}", "period": c + t, "new": 300, "active": 0, "done": 0, "dropped": 0}
+            for c in range(8) for t in range(10)]
+    design, data = validated(pd.DataFrame(rows))
+    stat = next(a.statistic for a in RECIPE.assumptions if a.key == key)
+
+    def value(extra, seed):
+        sim = design.simulate(np.random.default_rng(seed), data, {"transition": TRUE_P, **extra})
+        counts = RECIPE.observed(sim)
+        expected = counts["previous"] / counts["previous"].sum(axis=1, keepdims=True) @ TRUE_P
+        return float(stat.compute(sim, {"y": counts["counts"][None]}, {"expected": expected[None]})[0])
+
+    clean = np.mean([value({}, s) for s in range(3)])
+    faulty = np.mean([value(fault, s) for s in range(3)])
+    assert faulty > clean + 1.0
+
+
+def test_drift_relaxed_model_adds_stay_drift():
+    design, data = validated(small_table())
+    relaxation = next(a.relaxation for a in RECIPE.assumptions if a.key == "time_homogeneity")
+    model = design.build(data, relaxation)
+    assert "stay_drift" in model.named_vars and finite_logp(model)
+
+
+def test_dormant_model_at_its_null_equals_the_plain_model():
+    design, data = validated(small_table())
+    relaxation = next(a.relaxation for a in RECIPE.assumptions if a.key == "no_missing_exit")
+    weights = np.array([0.5, 0.35, 0.0001, 0.15, 0.6, 0.3, 0.1])
+    plain = pm.do(design.build(data), {"transition_weight": weights})
+    relaxed = pm.do(design.build(data, relaxation), {"transition_weight": weights, "dormant": 0.0})
+    np.testing.assert_allclose(pm.draw(relaxed["expected"], mode=QUICK), pm.draw(plain["expected"], mode=QUICK),
+                               atol=1e-9)
+
+
+# --- a fit: absorption shares ------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def fitted():
+    scenario = RECIPE.demo(np.random.default_rng(3))
+    design = make_design(RECIPE, scenario.options, {})
+    data = RECIPE.validate(scenario.table, design.options)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit = engine.fit(design.build(data), seed=4, settings=SETTINGS)
+    return design, data, fit
+
+
+def test_absorption_shares_equal_the_fundamental_matrix_formula(fitted):
+    # Reference: Kemeny and Snell (1960), Finite Markov Chains, Theorem 3.3.7:
+    # B = N R with the fundamental matrix N = (I - Q)^-1, computed here draw by draw.
+    design, data, fit = fitted
+    transition = fit.draws(["transition"])["transition"]
+    derived = RECIPE.derived(data, design.options, fit.draws())
+    for s, m in enumerate(transition[:50]):
+        q, r = m[:2, :2], m[:2, 2:]
+        b = np.linalg.inv(np.eye(2) - q) @ r
+        assert derived["ends in certified from applied"][s] == pytest.approx(b[0, 0], abs=1e-10)
+        assert derived["ends in left from training"][s] == pytest.approx(b[1, 1], abs=1e-10)
+
+
+def test_absorption_shares_of_each_draw_sum_to_one(fitted):
+    design, data, fit = fitted
+    b = absorption_shares(fit.draws(["transition"])["transition"], data.extra["absorbing"])
+    np.testing.assert_allclose(b.sum(axis=-1), 1.0, atol=1e-9)
+
+
+def test_fit_recovers_the_true_long_run_certified_share(fitted):
+    design, data, fit = fitted
+    share = RECIPE.derived(data, design.options, fit.draws())["ends in certified from applied"]
+    true = absorption_shares(np.array(DEMO_TRUTH["transition"]), data.extra["absorbing"])[0, 0]
+    assert np.percentile(share, 1) < true < np.percentile(share, 99)
+
+
+def test_figure_is_a_matplotlib_figure(fitted):
+    design, data, fit = fitted
+    fig = RECIPE.figure(data, design.options, fit.draws(), fit.draws(group="posterior_predictive"))
+    assert isinstance(fig, matplotlib.figure.Figure)
+
+
+# --- pooling, demo and registry ------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("pooling,centred", [("none", "false"), ("partial", "false"), ("partial", "true")])
+def test_group_designs_give_one_matrix_per_group(pooling, centred):
+    table = pd.concat([small_table().assign(group="north"),
+                       small_table().assign(group="south", cohort=lambda t: t["cohort"] + "2")])
+    design, data = validated(table, pooling=pooling, centred=centred)
+    model = design.build(data)
+    matrices = pm.draw(model["transition_group"], random_seed=1, mode=QUICK)
+    assert matrices.shape == (2, 4, 4)
+    np.testing.assert_allclose(matrices.sum(axis=-1), 1.0)
+
+
+def test_demo_table_validates_with_its_options():
+    scenario = RECIPE.demo(np.random.default_rng(1))
+    assert isinstance(scenario, DemoScenario)
+    design = make_design(RECIPE, scenario.options, {})
+    assert RECIPE.validate(scenario.table, design.options).rows == len(scenario.table)
+
+
+def test_registry_lists_the_recipe():
+    assert registry.load().get("stage-transitions").name == "stage-transitions"
