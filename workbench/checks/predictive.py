@@ -46,7 +46,10 @@ def targeted_statistics(context: Context) -> list[Finding]:
             continue
         observed, replicated = discrepancies(statistic, context.data, context.fit)
         p = predictive_p_value(observed, replicated, statistic.sides)
-        context.extras.setdefault("ppc", {})[assumption.key] = (statistic.name, observed, replicated, p)
+        ppc = context.extras.setdefault("ppc", {})
+        # An assumption checked by several statistics keeps one figure per statistic.
+        slot = assumption.key if assumption.key not in ppc else f"{assumption.key}-{statistic.name}"
+        ppc[slot] = (statistic.name, observed, replicated, p)
         lo, hi = np.nanpercentile(replicated, [5, 95])
         value = float(np.nanmean(observed))
         findings.append(
@@ -61,7 +64,7 @@ def targeted_statistics(context: Context) -> list[Finding]:
                     f"replicated 90% range {lo:.3g} to {hi:.3g}."
                 ),
                 numbers={"sides": statistic.sides, "replicated_mean": float(np.nanmean(replicated))},
-                figure=f"ppc-{assumption.key}",
+                figure=f"ppc-{slot}",
             )
         )
     return findings

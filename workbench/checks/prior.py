@@ -116,7 +116,9 @@ def prior_sensitivity(context: Context) -> list[Finding]:
                     f"Power-scaling sensitivity of {label}: to the prior {ps[i]:.3f}, "
                     f"to the likelihood {ls[i]:.3f}."
                 ),
-                numbers={"parameter": label, "prior": float(ps[i]), "likelihood": float(ls[i])},
+                numbers={"parameter": label, "prior": float(ps[i]), "likelihood": float(ls[i]),
+                         # A model file writes its priors in code: --prior cannot change them.
+                         "in_model_file": bool(getattr(context.design, "is_model_file", False))},
             )
         )
     return findings

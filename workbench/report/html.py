@@ -117,14 +117,20 @@ def figures(run) -> dict[str, dict]:
     if loo:
         out["pareto-k"] = {"uri": plots.to_data_uri(plots.pareto_k(loo["pareto_k"], loo["k_threshold"])),
                            "caption": "Pareto k of each row in PSIS-LOO."}
-    if run.calibration is not None:
-        try:
-            from workbench.report import calibration_plots
-        except ImportError:
-            calibration_plots = None
-        if calibration_plots is not None:
-            for name, fig in calibration_plots.figures(run.calibration).items():
-                out[f"calibration-{name}"] = {"uri": plots.to_data_uri(fig), "caption": name}
+    if run.calibration is not None and run.calibration.ranks:
+        from workbench.checks.calibration import ECDF_FIGURE, HISTOGRAM_FIGURE
+        from workbench.report import calibration_plots
+
+        source = ("Outcomes simulated by an independent simulator (this checks the model code)."
+                  if run.calibration.checks_model_code else
+                  "Outcomes simulated from the model's own prior predictive: this checks the "
+                  "sampler, not the model code.")
+        out[ECDF_FIGURE] = {
+            "uri": plots.to_data_uri(calibration_plots.ecdf_difference_figure(run.calibration)),
+            "caption": f"Calibration ranks: ECDF minus uniform with its 95% simultaneous band. {source}"}
+        out[HISTOGRAM_FIGURE] = {
+            "uri": plots.to_data_uri(calibration_plots.rank_histogram_figure(run.calibration)),
+            "caption": f"Calibration rank histograms with the 99% range of each bar. {source}"}
     return out
 
 

@@ -20,6 +20,8 @@ PSENSE_STRONG = 4 * PSENSE_THRESHOLD
 
 ADVICE = ("Widen or move the prior of {name} after checking its units and scale against "
           "what the data say; try it with --prior {name}=DIST(ARGS).")
+MODEL_FILE_ADVICE = ("Widen or move the prior of {name} after checking its units and scale "
+                     "against what the data say; change it in build_model of the model file.")
 
 
 @rule("prior_coverage")
@@ -44,7 +46,8 @@ def sensitivity(f: Finding) -> Judgement:
         level = 2 if min(prior, likelihood) >= PSENSE_STRONG else 1
         return Judgement(level, f"Prior-data conflict on {name}: the posterior moves when either "
                                 f"the prior or the likelihood is scaled.",
-                         ADVICE.format(name=base), strength=prior + likelihood)
+                         (MODEL_FILE_ADVICE if n.get("in_model_file") else ADVICE).format(name=base),
+                         strength=prior + likelihood)
     if prior >= PSENSE_THRESHOLD:
         return Judgement(1, f"{name} is driven by its prior more than by the data.",
                          f"The data say little about {name}; report its prior as an assumption "
