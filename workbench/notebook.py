@@ -8,6 +8,8 @@ from pathlib import Path
 import nbformat
 from nbformat.v4 import new_code_cell, new_markdown_cell, new_notebook
 
+from workbench.recipe import option_text
+
 
 def for_check(run, summary: dict) -> str:
     """Notebook text: load the data, rebuild the design, refit with the same seed."""
@@ -29,7 +31,7 @@ def for_check(run, summary: dict) -> str:
             f"result = workbench.check(\n"
             f"    {target!r},\n"
             f"    {str(Path(run.data_info.path).resolve())!r},\n"
-            f"    options={json.dumps({k: str(v) for k, v in design.options.items()})},\n"
+            f"    options={json.dumps({k: option_text(v) for k, v in design.options.items()})},\n"
             f"    priors={json.dumps(dict(design.priors))},\n"
             f"    seed={run.seed},\n"
             f"    settings=Settings(draws={settings.draws}, tune={settings.tune}, "

@@ -19,6 +19,13 @@ from workbench.errors import OptionError
 REQUIRED = object()  # sentinel: an option without a default must be given
 
 
+def option_text(value: Any) -> str:
+    """The ``--set`` text of a parsed option value: a list as ``a,b``, else ``str``."""
+    if isinstance(value, (tuple, list)):
+        return ",".join(str(v) for v in value)
+    return str(value)
+
+
 @dataclass(frozen=True)
 class Column:
     """A column of the input table."""
@@ -312,7 +319,7 @@ class Design:
         """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
         defaults = {o.name: o.default for o in self.recipe.options}
         parts = [self.recipe.name]
-        parts += [f"{k}={v}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
+        parts += [f"{k}={option_text(v)}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
 
