@@ -274,7 +274,8 @@ class _Compiled:
                 observed = {k: np.asarray(v) for k, v in job.design.observed(simulated).items()}
                 # A story that draws its own parameters (a model file's simulate) ranks those.
                 if getattr(simulated, "truth", None) is not None:
-                    truth = {name: np.asarray(simulated.truth[name], dtype=float) for name in self.free}
+                    truth = {name: np.asarray(simulated.truth[name], dtype=float)
+                             for name in self.free}
             else:
                 observed = {container: np.asarray(drawn[rv]) for rv, container in outcomes.items()}
         except Exception as err:  # the user's simulator: record, never abort the run
@@ -283,10 +284,8 @@ class _Compiled:
         settings = Settings(draws=job.draws, tune=job.tune, chains=job.chains, cores=job.cores)
         for fit_seed in (seeds["fit"], seeds["refit"]):
             try:
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore")
-                    tree = self.sampler.run(fit_seed, settings, observed=observed)
-                posterior = {n: np.asarray(tree["posterior"][n].values) for n in self.free}
+                posterior, divergences = _sample_arrays(self.sampler, fit_seed, settings, observed,
+                                                        self.free)
             except Exception as err:  # a sampler error is a failed replicate
                 record["failed"] = f"fit failed: {type(err).__name__}: {err}"
                 return record
@@ -297,7 +296,6 @@ class _Compiled:
             if min_ess >= job.L or fit_seed == seeds["refit"]:
                 break
             settings = replace(settings, draws=settings.draws * ESS_RETRY_FACTOR)
-        divergences = int(np.asarray(tree["sample_stats"]["diverging"].values).sum())
         rng = np.random.default_rng(seeds["thin"])
         total = settings.chains * settings.draws
         # L evenly spaced draws across the pooled chains, from a random offset.
@@ -326,6 +324,49 @@ class _Compiled:
         args += [np.asarray(observed[c], dtype=d) for c, d in zip(containers, dtypes[len(values):])]
         value = float(fn(*args))
         return value if not np.isnan(value) else -np.inf
+
+
+def _sample_arrays(sampler, seed: int, settings: Settings, observed, names):
+    """Posterior draws ``(chain, draw, *shape)`` of ``names`` and the number of
+    divergent transitions, for new observed data on the compiled model.
+
+    Reads nutpie's raw trace: for a small model, building the DataTree costs
+    about five times the sampling itself, and calibration needs only arrays.
+    The draws are the same as :meth:`workbench.engine.Sampler.run` gives.
+    """
+    import nutpie
+    import pyarrow
+
+    unknown = set(observed) - sampler.data_names
+    if unknown:
+        raise WorkbenchError(f"model has no data container named {sorted(unknown)[0]!r}")
+    compiled = sampler.compiled.with_data(**{k: np.asarray(v) for k, v in observed.items()})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        raw = nutpie.sample(compiled, draws=settings.draws, tune=settings.tune,
+                            chains=settings.chains, cores=min(settings.cores, settings.chains),
+                            seed=seed, progress_bar=False, save_warmup=False,
+                            return_raw_trace=True)
+    draw_batches, stat_batches = raw.get_arrow_trace()
+    chains: dict[str, list] = {name: [] for name in names}
+    divergences = 0
+
+    def column(batch, name) -> np.ndarray:
+        return pyarrow.array(batch.column(name)).to_numpy(zero_copy_only=False)
+
+    for draws, stats in zip(draw_batches, stat_batches):
+        kept = ~column(stats, "tuning").astype(bool)
+        divergences += int(column(stats, "diverging")[kept].sum())
+        for name in names:
+            values = draws.column(name)
+            shape = values.field.metadata.get(b"shape", b"").decode()
+            shape = tuple(int(n) for n in shape.split(",") if n)
+            flat = pyarrow.array(values)
+            if hasattr(flat, "flatten"):  # vector variables come as one list per draw
+                flat = flat.flatten()
+            flat = flat.to_numpy(zero_copy_only=False)
+            chains[name].append(flat.reshape((draws.num_rows,) + shape)[kept])
+    return {name: np.stack(found) for name, found in chains.items()}, divergences
 
 
 def _outcome_containers(model, data_names) -> dict[str, str]:
