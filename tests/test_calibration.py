@@ -239,6 +239,46 @@ def test_settings_too_small_for_L_are_refused(design_data):
                             quiet=True, ranks=L)
 
 
+def test_interrupted_run_leaves_a_checkpoint_that_resumes(design_data, reference, tmp_path,
+                                                          monkeypatch):
+    design, data = design_data
+    original = sbc._replicate_task
+
+    def interrupted(job, index):
+        if index == 3:
+            raise KeyboardInterrupt  # Ctrl-C while replicate 3 runs
+        return original(job, index)
+
+    monkeypatch.setattr(sbc, "_replicate_task", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        sbc.run_calibration(design, data, 6, SEED, workers=1, folder=tmp_path,
+                            settings=SETTINGS, quiet=True, ranks=L)
+    assert len(_lines(tmp_path)) == 1 + 3  # header and replicates 0..2, each whole
+    monkeypatch.setattr(sbc, "_replicate_task", original)
+    result = sbc.run_calibration(design, data, 6, SEED, workers=1, folder=tmp_path,
+                                 settings=SETTINGS, quiet=True, ranks=L)
+    assert result.records == {i: reference.records[i] for i in range(6)}
+
+
+def test_failed_simulation_is_recorded_with_its_reason_and_the_run_goes_on(design_data):
+    from dataclasses import replace
+
+    design, data = design_data
+
+    def fragile(rng, data, params, options):
+        if params["spread"] > 0.05:
+            raise ValueError("spread out of range")
+        return design.recipe.simulate(rng, data, params, options)
+
+    own = make_design(replace(design.recipe, simulate=fragile), OPTIONS, {})
+    result = sbc.run_calibration(own, data, 6, SEED, workers=1, settings=SETTINGS, quiet=True,
+                                 ranks=L)
+    assert result.failures, "expected some prior draws above 0.05 among six"
+    assert len(result.replicates) + len(result.failures) == 6
+    assert all(f["reason"] == "simulation failed: ValueError: spread out of range"
+               for f in result.failures)
+
+
 # --- without an independent simulator ------------------------------------------------------
 
 
