@@ -27,8 +27,6 @@ analysis of competing risks data. Applied Statistics 34(3), 201-211.
 
 from __future__ import annotations
 
-from functools import partial
-
 import numpy as np
 import pandas as pd
 
@@ -41,7 +39,6 @@ from workbench.recipe import (
     Option,
     Parameter,
     Recipe,
-    Relaxation,
     Statistic,
 )
 
@@ -211,17 +208,6 @@ def demo(rng: np.random.Generator) -> DemoScenario:
 # --- assumptions ----------------------------------------------------------------------------------
 
 
-def _relaxation(parameter, meaning, null, negligible, applies=None):
-    return Relaxation(
-        parameter=parameter,
-        meaning=meaning,
-        build=partial(build_model, relax=parameter),
-        null=null,
-        negligible=negligible,
-        applies=applies,
-    )
-
-
 def _resolve_is_all(options) -> bool:
     return options.get("resolve") == "all"
 
@@ -229,28 +215,18 @@ def _resolve_is_all(options) -> bool:
 RECIPE = Recipe(
     name=NAME,
     summary="Each unit of a cohort ends in one of several outcomes, each with its own timing.",
-    columns=(
-        Column("cohort", "label of the cohort (units that started together)"),
-        Column("age", "age at which the cohort was seen (>= 0, any unit of time)"),
-        Column("exposed", "number of units in the cohort (>= 1, the same on every row of a cohort)"),
+    columns=cohorts.columns(
         Column("<outcome>", "one column per outcome named in 'outcomes': units ended that way by "
-                            "that age (cumulative)"),
-        Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
-    ),
+                            "that age (cumulative)")),
     options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.CENTRED),
     parameters=(
-        # As in timing-curve: scale relative to the median age seen.
-        Parameter("scale", "timing scale of each outcome, relative to the median age seen", "lognormal(0,1.5)"),
-        Parameter("scale_sd", "sd of log scale across groups (partial pooling)", "halfnormal(0.5)"),
-        Parameter("shape", "shape of each outcome's timing curve", "lognormal(0.3,0.6)"),
+        *cohorts.TIMING_PARAMETERS,
         # Gamma(1, 1) weights normalised to shares: a uniform Dirichlet over
         # the outcomes (and the open part under resolve=estimate).
         Parameter("share_weight", "unnormalised weight of each outcome's share", "gamma(1,1)"),
         # Relaxation parameters (only present in the expanded models).
         Parameter("unresolved", "share of units that never end (resolve=all relaxed)", "beta(1,20)"),
-        Parameter("curve_power", "log exponent of the exponentiated family F ** exp(curve_power)", "normal(0,0.5)"),
-        Parameter("cohort_sd", "sd of log timing scale between cohorts", "halfnormal(0.3)"),
-        Parameter("overdispersion", "correlation of units within a cohort (Dirichlet-multinomial)", "beta(1,30)"),
+        *cohorts.RELAXATION_PARAMETERS,
     ),
     assumptions=(
         Assumption(
@@ -262,59 +238,14 @@ RECIPE = Recipe(
                 "standardised residual of all ended units at the oldest quarter of rows",
                 cohorts.plateau_shortfall,
             ),
-            relaxation=_relaxation(
-                "unresolved", "a share of units may never end",
+            relaxation=cohorts.relaxation(
+                build_model, "unresolved", "a share of units may never end",
                 null=0.0, negligible=0.01, applies=_resolve_is_all,
             ),
             advice="Some units may never end: use --set resolve=estimate, or look for an outcome "
                    "that the table does not count.",
         ),
-        Assumption(
-            key="curve_shape",
-            statement="Each outcome's timing follows the chosen family.",
-            statistic=Statistic(
-                "late_trend",
-                "slope of standardised cumulative residuals on log age past the median age",
-                cohorts.late_trend,
-            ),
-            relaxation=_relaxation(
-                "curve_power", "the curves may be the family raised to a power (exponentiated family)",
-                null=0.0, negligible=0.1,
-            ),
-            advice="Try another family (--set family=...) or a curve with one more shape parameter.",
-        ),
-        Assumption(
-            key="cohort_homogeneity",
-            statement="Every cohort (within a group) has the same shares and timing.",
-            statistic=Statistic(
-                "cohort_spread",
-                "variance across cohorts of the mean standardised residual",
-                cohorts.cohort_spread,
-                sides="greater",
-            ),
-            relaxation=_relaxation(
-                "cohort_sd", "each cohort's timing may differ (log-normal cohort effect)",
-                null=0.0, negligible=0.05,
-            ),
-            advice="Cohorts differ: add a group column for what distinguishes them, or a cohort "
-                   "effect on timing.",
-        ),
-        Assumption(
-            key="independent_units",
-            statement="Units of a cohort end independently (multinomial variation only).",
-            statistic=Statistic(
-                "dispersion",
-                "Pearson chi-square per likelihood cell (1 under multinomial variation)",
-                cohorts.cell_dispersion,
-                sides="greater",
-            ),
-            relaxation=_relaxation(
-                "overdispersion", "units of a cohort share a common influence (Dirichlet-multinomial)",
-                null=0.0, negligible=0.005,
-            ),
-            advice="Counts vary more than multinomial: units of a cohort share something; model it "
-                   "as an effect or use the overdispersed likelihood.",
-        ),
+        *cohorts.shared_assumptions(build_model),
     ),
     validate=validate,
     simulate=simulate,

@@ -29,8 +29,6 @@ Failure Time Data, 2nd ed. (parametric families, grouped data likelihood).
 
 from __future__ import annotations
 
-from functools import partial
-
 import numpy as np
 import pandas as pd
 
@@ -43,7 +41,6 @@ from workbench.recipe import (
     Option,
     Parameter,
     Recipe,
-    Relaxation,
     Statistic,
 )
 
@@ -178,17 +175,6 @@ def demo(rng: np.random.Generator) -> DemoScenario:
 # --- assumptions --------------------------------------------------------------------------------
 
 
-def _relaxation(parameter, meaning, null, negligible, applies=None):
-    return Relaxation(
-        parameter=parameter,
-        meaning=meaning,
-        build=partial(build_model, relax=parameter),
-        null=null,
-        negligible=negligible,
-        applies=applies,
-    )
-
-
 def _eventual_is_all(options) -> bool:
     return options.get("eventual") == "all"
 
@@ -196,44 +182,17 @@ def _eventual_is_all(options) -> bool:
 RECIPE = Recipe(
     name=NAME,
     summary="Units of a cohort have one event at a random age; some may never have it.",
-    columns=(
-        Column("cohort", "label of the cohort (units that started together)"),
-        Column("age", "age at which the cohort was seen (>= 0, any unit of time)"),
-        Column("exposed", "number of units in the cohort (>= 1, the same on every row of a cohort)"),
-        Column("events", "units with the event by that age (cumulative, non-decreasing in age)"),
-        Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
-    ),
+    columns=cohorts.columns(
+        Column("events", "units with the event by that age (cumulative, non-decreasing in age)")),
     options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.CENTRED),
     parameters=(
-        # Scale in units of the median observed age: median 1, 95% between
-        # 0.05 and 19 times it, from cohorts seen long after to long before.
-        Parameter("scale", "timing scale of the curve, relative to the median age seen", "lognormal(0,1.5)"),
-        Parameter("scale_sd", "sd of log scale across groups (partial pooling)", "halfnormal(0.5)"),
-        # Median 1.35, 95% between 0.4 and 4.4: from spread-out to bunched timing.
-        Parameter("shape", "shape of the curve (larger: event ages bunched more tightly)", "lognormal(0.3,0.6)"),
+        *cohorts.TIMING_PARAMETERS,
         Parameter("eventual", "share of units that ever have the event (eventual=estimate)", "beta(1,1)"),
         # Relaxation parameters (only present in the expanded models).
         Parameter("never", "share of units that never have the event (eventual=all relaxed)", "beta(1,20)"),
-        Parameter("curve_power", "log exponent of the exponentiated family F ** exp(curve_power)", "normal(0,0.5)"),
-        Parameter("cohort_sd", "sd of log timing scale between cohorts", "halfnormal(0.3)"),
-        Parameter("overdispersion", "correlation of units within a cohort (Dirichlet-multinomial)", "beta(1,30)"),
+        *cohorts.RELAXATION_PARAMETERS,
     ),
     assumptions=(
-        Assumption(
-            key="curve_shape",
-            statement="Event ages follow the chosen family.",
-            statistic=Statistic(
-                "late_trend",
-                "slope of standardised cumulative residuals on log age past the median age",
-                cohorts.late_trend,
-            ),
-            relaxation=_relaxation(
-                "curve_power", "the curve may be the family raised to a power (exponentiated family)",
-                null=0.0, negligible=0.1,
-            ),
-            advice="Try another family (--set family=...) or a curve with one more shape parameter; "
-                   "look at where the residuals bend.",
-        ),
         Assumption(
             key="eventual_fraction",
             statement="The share of units that ever have the event is as modelled "
@@ -243,45 +202,14 @@ RECIPE = Recipe(
                 "standardised residual of cumulative events at the oldest quarter of rows",
                 cohorts.plateau_shortfall,
             ),
-            relaxation=_relaxation(
-                "never", "a share of units may never have the event",
+            relaxation=cohorts.relaxation(
+                build_model, "never", "a share of units may never have the event",
                 null=0.0, negligible=0.01, applies=_eventual_is_all,
             ),
             advice="Let a share of units never have the event (--set eventual=estimate), or follow "
                    "the oldest cohorts longer before trusting the plateau.",
         ),
-        Assumption(
-            key="cohort_homogeneity",
-            statement="Every cohort (within a group) follows the same timing curve.",
-            statistic=Statistic(
-                "cohort_spread",
-                "variance across cohorts of the mean standardised residual",
-                cohorts.cohort_spread,
-                sides="greater",
-            ),
-            relaxation=_relaxation(
-                "cohort_sd", "each cohort's timing scale may differ (log-normal cohort effect)",
-                null=0.0, negligible=0.05,
-            ),
-            advice="Cohorts differ in timing: add a group column for what distinguishes them, or a "
-                   "cohort effect on the timing scale.",
-        ),
-        Assumption(
-            key="independent_units",
-            statement="Units of a cohort have their events independently (multinomial variation only).",
-            statistic=Statistic(
-                "dispersion",
-                "Pearson chi-square per likelihood cell (1 under multinomial variation)",
-                cohorts.cell_dispersion,
-                sides="greater",
-            ),
-            relaxation=_relaxation(
-                "overdispersion", "units of a cohort share a common influence (Dirichlet-multinomial)",
-                null=0.0, negligible=0.005,
-            ),
-            advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
-                   "site, a day); model it as an effect or use the overdispersed likelihood.",
-        ),
+        *cohorts.shared_assumptions(build_model),
     ),
     validate=validate,
     simulate=simulate,

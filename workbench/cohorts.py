@@ -29,12 +29,14 @@ censoring as multinomial cells).
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 import pandas as pd
 
 from workbench import curves, tables
 from workbench.errors import DataError
-from workbench.recipe import Dataset, Option
+from workbench.recipe import Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend, standardised
 
 # Keeps every cell probability strictly inside (0, 1) so the likelihood never
@@ -566,3 +568,94 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     axes[0][-1].legend(fontsize=8, frameon=False, loc="lower right")
     fig.tight_layout()
     return fig
+
+
+# --- what both recipes declare -----------------------------------------------------------------
+
+
+def columns(outcome: Column) -> tuple[Column, ...]:
+    """The table's columns around the recipe's outcome column(s)."""
+    return (
+        Column("cohort", "label of the cohort (units that started together)"),
+        Column("age", "age at which the cohort was seen (>= 0, any unit of time)"),
+        Column("exposed", "number of units in the cohort (>= 1, the same on every row of a cohort)"),
+        outcome,
+        Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
+    )
+
+
+TIMING_PARAMETERS = (
+    # Scale in units of the median observed age: median 1, 95% between
+    # 0.05 and 19 times it, from cohorts seen long after to long before.
+    Parameter("scale", "timing scale (per outcome), relative to the median age seen", "lognormal(0,1.5)"),
+    Parameter("scale_sd", "sd of log scale across groups (partial pooling)", "halfnormal(0.5)"),
+    # Median 1.35, 95% between 0.4 and 4.4: from spread-out to bunched timing.
+    Parameter("shape", "shape of the timing curve (per outcome; larger: ages bunched more tightly)",
+              "lognormal(0.3,0.6)"),
+)
+RELAXATION_PARAMETERS = (
+    Parameter("curve_power", "log exponent of the exponentiated family F ** exp(curve_power)", "normal(0,0.5)"),
+    Parameter("cohort_sd", "sd of log timing scale between cohorts", "halfnormal(0.3)"),
+    Parameter("overdispersion", "correlation of units within a cohort (Dirichlet-multinomial)", "beta(1,30)"),
+)
+
+
+def relaxation(build_model, parameter, meaning, null, negligible, applies=None) -> Relaxation:
+    """The expansion of ``build_model`` by one relaxation parameter."""
+    return Relaxation(parameter=parameter, meaning=meaning, build=partial(build_model, relax=parameter),
+                      null=null, negligible=negligible, applies=applies)
+
+
+def shared_assumptions(build_model) -> tuple[Assumption, ...]:
+    """curve_shape, cohort_homogeneity and independent_units, with statistics and relaxations."""
+    return (
+        Assumption(
+            key="curve_shape",
+            statement="The timing (of every outcome) follows the chosen family.",
+            statistic=Statistic(
+                "late_trend",
+                "slope of standardised cumulative residuals on log age past the median age",
+                late_trend,
+            ),
+            relaxation=relaxation(
+                build_model, "curve_power",
+                "the curve may be the family raised to a power (exponentiated family)",
+                null=0.0, negligible=0.1,
+            ),
+            advice="Try another family (--set family=...) or a curve with one more shape parameter; "
+                   "look at where the residuals bend.",
+        ),
+        Assumption(
+            key="cohort_homogeneity",
+            statement="Every cohort (within a group) follows the same timing.",
+            statistic=Statistic(
+                "cohort_spread",
+                "variance across cohorts of the mean standardised residual",
+                cohort_spread,
+                sides="greater",
+            ),
+            relaxation=relaxation(
+                build_model, "cohort_sd", "each cohort's timing scale may differ (log-normal cohort effect)",
+                null=0.0, negligible=0.05,
+            ),
+            advice="Cohorts differ in timing: add a group column for what distinguishes them, or a "
+                   "cohort effect on the timing scale.",
+        ),
+        Assumption(
+            key="independent_units",
+            statement="Units of a cohort behave independently (multinomial variation only).",
+            statistic=Statistic(
+                "dispersion",
+                "Pearson chi-square per likelihood cell (1 under multinomial variation)",
+                cell_dispersion,
+                sides="greater",
+            ),
+            relaxation=relaxation(
+                build_model, "overdispersion",
+                "units of a cohort share a common influence (Dirichlet-multinomial)",
+                null=0.0, negligible=0.005,
+            ),
+            advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
+                   "site, a day); model it as an effect or use the overdispersed likelihood.",
+        ),
+    )
