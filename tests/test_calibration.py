@@ -316,28 +316,17 @@ def test_uniform_ranks_are_rejected_at_about_the_nominal_rate():
     assert 5 <= np.sum(p < 0.05) <= 29
 
 
-def test_strongly_u_shaped_ranks_are_rejected_as_too_narrow():
+@pytest.mark.parametrize("a, b, shape, direction", [
+    (0.3, 0.3, "u_shape", "too_narrow"),  # ranks piled at both ends
+    (4.0, 4.0, "hump", "too_wide"),  # ranks crowding the middle
+    (3.0, 1.0, "slope", "true_above"),  # ranks leaning to the top
+])
+def test_departures_from_uniform_ranks_are_rejected_with_their_shape(a, b, shape, direction):
     rng = np.random.default_rng(2)
-    ranks = (rng.beta(0.3, 0.3, size=100) * 100).astype(int).clip(0, 99)
+    ranks = (rng.beta(a, b, size=100) * 100).astype(int).clip(0, 99)
     test = rank_uniformity(ranks, 99)
     assert test.p_value < 1e-4
-    assert (test.shape, test.direction) == ("u_shape", "too_narrow")
-
-
-def test_humped_ranks_are_rejected_as_too_wide():
-    rng = np.random.default_rng(3)
-    ranks = (rng.beta(4, 4, size=100) * 100).astype(int).clip(0, 99)
-    test = rank_uniformity(ranks, 99)
-    assert test.p_value < 1e-4
-    assert (test.shape, test.direction) == ("hump", "too_wide")
-
-
-def test_shifted_ranks_are_rejected_as_biased():
-    rng = np.random.default_rng(4)
-    ranks = (rng.beta(3, 1, size=100) * 100).astype(int).clip(0, 99)
-    test = rank_uniformity(ranks, 99)
-    assert test.p_value < 1e-4
-    assert (test.shape, test.direction) == ("slope", "true_above")
+    assert (test.shape, test.direction) == (shape, direction)
 
 
 def test_simultaneous_band_matches_arviz_envelope():
