@@ -16,11 +16,20 @@ from ``(seed, replicate index)`` alone, so results are identical whatever
 the executor. Finished replicates are appended to a checkpoint (JSON lines)
 in the run folder; rerunning the same call continues where it stopped.
 
+Ranks are taken among ``L`` draws spread evenly over the pooled chains; the
+default settings give about 2.5 L effective draws, and a fit whose ESS falls
+below ``L`` is rerun once with more draws. Fits that fail or diverge are
+recorded with their reason and left out of the ranks; they never stop the
+run. A design without a simulator (``design.simulate is None``) is
+calibrated against the model's own prior predictive, which checks the
+sampler but not the model code; the result says so.
+
 Public API
 ----------
 run_calibration(design, data, sims, seed, *, workers=None, cluster=None,
-                folder=None, settings=None, quiet=False) -> CalibrationResult
+                folder=None, settings=None, quiet=False, ranks=99) -> CalibrationResult
 load_calibration(folder, sims=None) -> CalibrationResult
+replicate_seeds(seed, index) -> the seeds of one replicate
 
 References
 ----------
