@@ -87,19 +87,19 @@ def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=No
     return engine.fit(model, seed, settings, sampler=sampler, observed=values, **kwargs)
 
 
-def _fit_relaxed(design, data, parameter: str, seed: int, settings: engine.Settings):
+def _fit_relaxed(design, data, parameter: str, seed: int, settings: engine.Settings, fitter=None):
     """Fit one relaxed model (in a worker process or in this one); returns its DataTree."""
     warnings.simplefilter("ignore")
     relaxation = next(a.relaxation for a in design.assumptions
                       if a.relaxation and a.relaxation.parameter == parameter)
     # Posterior predictive draws let the checks ask whether another
     # assumption's statistic still looks wrong once this one is relaxed.
-    result = fit_design(design, data, seed, settings, relaxation, prior=False)
+    result = (fitter or fit_design)(design, data, seed, settings, relaxation, prior=False)
     return result.idata, result.seconds
 
 
 def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
-                    say: Callable[[str], None]) -> dict[str, engine.Fit]:
+                    say: Callable[[str], None], fitter=None) -> dict[str, engine.Fit]:
     """Fit every declared relaxation, in parallel worker processes.
 
     Each expanded model is compiled once in its worker. With ``workers=1``
@@ -117,7 +117,7 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
         say(f"fitting {len(names)} relaxed model(s) in this process")
         out = {}
         for n in names:
-            idata, seconds = _fit_relaxed(design, data, n, seeds[f"relax:{n}"], settings)
+            idata, seconds = _fit_relaxed(design, data, n, seeds[f"relax:{n}"], settings, fitter)
             out[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
         return out
     say(f"fitting {len(names)} relaxed model(s) on {workers} process(es)")
@@ -125,7 +125,7 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     # separate processes compile in parallel. "spawn" avoids forking a process
     # that already runs sampler threads.
     with ProcessPoolExecutor(workers, mp_context=get_context("spawn")) as pool:
-        futures = {n: pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings)
+        futures = {n: pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings, fitter)
                    for n in names}
         out = {}
         for n, future in futures.items():
@@ -146,13 +146,20 @@ def run_check(
     calibrate: Callable[[], Any] | None = None,
     say: Callable[[str], None] = lambda _: None,
     progress: bool = False,
+    fitter: Callable[..., engine.Fit] | None = None,
 ) -> CheckRun:
-    """Fit the design, its relaxations and calibration; judge every assumption."""
+    """Fit the design, its relaxations and calibration; judge every assumption.
+
+    ``fitter`` stands in for :func:`fit_design` (same arguments), e.g. a
+    :class:`workbench.fitcache.CachedFitter` that reuses stored fits.
+    """
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     seeds = engine.seed_stream(seed, "main", "relaxations")
-    main = fit_design(design, data, seeds["main"], settings, progress=progress, label=design.name, say=say)
-    relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say) if relax else {}
+    main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
+                                  label=design.name, say=say)
+    relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
+                              fitter) if relax else {}
     calibration = calibrate() if calibrate else None
     context = checks.Context(design, data, main, relaxed, calibration)
     say("running checks")
