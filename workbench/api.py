@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Mapping
 
-from workbench import engine, harness, registry, tables, writers
+from workbench import engine, harness, plans, registry, tables, writers
 from workbench.errors import OptionError
 from workbench.recipe import make_design
 
@@ -83,8 +83,17 @@ def check(
     say: Callable[[str], None] = lambda _: None,
     progress: bool = False,
     command: str = "",
+    cache: bool | str | Path | None = None,
+    history: bool | str | Path | None = True,
+    plan_file: str | Path | None = None,
 ) -> CheckResult:
-    """Run the full check of a design on a table and (by default) write its files."""
+    """Run the full check of a design on a table and (by default) write its files.
+
+    ``cache`` reuses and stores fits in the fit cache (True: the default
+    folder; a path: that folder). ``history`` appends a row to the run
+    history when files are written (True: the default history file; False:
+    none). ``plan_file`` names the plan the run came from, for the manifest.
+    """
     if seed < 0:
         raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
     design = resolve_design(target, options, priors, recipe_folders)
@@ -100,13 +109,44 @@ def check(
         def calibrate():
             return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
                                    folder=folder, quiet=not progress)
+    command = command or _api_command(target, data, options, priors, seed, sbc)
     run = harness.run_check(design, dataset, info, seed, settings, relax=relax, workers=workers,
-                            calibrate=calibrate, say=say, progress=progress)
+                            calibrate=calibrate, say=say, progress=progress,
+                            fitter=fitter_for(cache, info.sha256))
     doc = writers.summary(run)
+    doc["manifest"] = writers.clean(plans.manifest(
+        command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=run.started,
+        plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
+              "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
+              "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
+              "sampling": {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains,
+                           "prior_draws": settings.prior_draws}}))
     result = CheckResult(run, doc, folder)
     if write:
-        result.files = write_check(result, command or _api_command(target, data, options, priors, seed, sbc))
+        result.files = write_check(result, command)
+        if history:
+            from workbench import history as run_history
+
+            run_history.record(history_path(history), run_history.check_entry(
+                "check", run.design, doc, result.files["report"]))
     return result
+
+
+def fitter_for(cache: bool | str | Path | None, data_sha256: str):
+    """The fit function for a ``cache`` argument: None/False fits afresh every time."""
+    if not cache:
+        return None
+    from workbench import fitcache
+
+    folder = fitcache.DEFAULT_FOLDER if cache is True else Path(cache)
+    return fitcache.CachedFitter(str(folder), data_sha256)
+
+
+def history_path(history: bool | str | Path) -> Path:
+    """The history file for a ``history`` argument (True: the default one)."""
+    from workbench import history as run_history
+
+    return run_history.default_path() if history is True else Path(history)
 
 
 def _api_command(target, data, options, priors, seed, sbc) -> str:
@@ -131,3 +171,180 @@ def write_check(result: CheckResult, command: str) -> dict[str, Path]:
         "report": writers.atomic_write(folder / "report.html", report_html.render(run, result.summary, command)),
     }
     return files
+
+
+# --- calibration on its own ----------------------------------------------------------------
+
+CALIBRATION_SCHEMA = "workbench.calibration-run/1"
+
+
+@dataclass
+class CalibrateResult:
+    """A finished simulation-based calibration of one design.
+
+    ``calibration`` is the :class:`workbench.calibration.CalibrationResult`;
+    ``doc`` equals calibration.json.
+    """
+
+    design: Any
+    calibration: Any
+    doc: dict
+    folder: Path | None = None
+    files: dict[str, Path] = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return self.doc
+
+    @property
+    def verdict(self) -> str:
+        """The ``implementation`` verdict the calibration supports."""
+        return self.doc["implementation"]["verdict"]
+
+    def _repr_html_(self) -> str:
+        cal = self.doc["calibration"]
+        rows = "".join(f"<tr><td>{html.escape(k)}</td><td>{v['p_value']:.3g}</td></tr>"
+                       for k, v in cal["parameters"].items())
+        return (f"<p><strong>{html.escape(self.doc['design'])}</strong>: implementation "
+                f"{html.escape(self.verdict)} ({cal['completed']} of {cal['sims']} replicates)</p>"
+                f"<table><tr><th>quantity</th><th>uniformity p-value</th></tr>{rows}</table>")
+
+
+def calibration_folder(out: str | Path | None, label: str, force: bool) -> Path:
+    """The run folder of a calibration: a folder holding this calibration's
+    checkpoint is reused (the run resumes); any other non-empty folder needs ``force``.
+
+    Resuming needs no ``--force`` because it overwrites nothing that matters:
+    each replicate's result depends only on (design, data, seed, index,
+    settings), so kept replicates equal recomputed ones. A checkpoint of
+    another calibration is never deleted, even with ``force``: the runner
+    refuses it with one line.
+    """
+    from workbench.calibration import CHECKPOINT
+
+    if out is not None and (Path(out) / CHECKPOINT).is_file():
+        return Path(out)
+    return writers.run_folder(str(out) if out else None, f"calibrate-{label}", force)
+
+
+def calibrate(
+    target: str,
+    data: str | Path,
+    *,
+    sims: int,
+    options: Mapping[str, Any] | None = None,
+    priors: Mapping[str, str] | None = None,
+    seed: int = 1,
+    workers: int | None = None,
+    cluster: str | None = None,
+    out: str | Path | None = None,
+    force: bool = False,
+    settings: engine.Settings | None = None,
+    recipe_folders: list[str] | None = None,
+    write: bool = True,
+    history: bool | str | Path | None = True,
+    quiet: bool = True,
+    command: str = "",
+) -> CalibrateResult:
+    """Simulation-based calibration of a design on a table's covariates.
+
+    Parameters
+    ----------
+    target : str
+        Recipe name or model file.
+    data : path
+        The table; its covariates (distances, cohort sizes) shape every
+        replicate, its outcomes are replaced by simulated ones.
+    sims : int
+        Replicates.
+    seed : int, default 1
+        Every replicate's seeds derive from ``(seed, replicate index)``.
+    workers, cluster
+        Local worker processes, or a Dask scheduler address.
+    out, force
+        Run folder; a folder holding this calibration's checkpoint resumes it.
+    settings : workbench.engine.Settings, optional
+        Sampling per replicate fit (default: the runner's calibration settings).
+    write : bool, default True
+        Write calibration.json, calibration.html and notebook.ipynb (and keep
+        the checkpoint); False computes only.
+    history : bool or path, default True
+        Append a row to the run history.
+
+    Returns
+    -------
+    CalibrateResult
+
+    References
+    ----------
+    Talts, S., Betancourt, M., Simpson, D., Vehtari, A. and Gelman, A. (2018).
+    Validating Bayesian inference algorithms with simulation-based
+    calibration. arXiv:1804.06788.
+    """
+    from workbench import verdicts
+    from workbench.calibration import run_calibration
+    from workbench.checks.calibration import calibration_findings
+
+    if seed < 0:
+        raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
+    started = plans.now()
+    design = resolve_design(target, options, priors, recipe_folders)
+    dataset, info = load_data(design, data)
+    if hasattr(design, "check_simulator"):
+        design.check_simulator(dataset)  # a model file's story: one clear line before any fit
+    folder = calibration_folder(out, design.label(), force) if write else None
+    result = run_calibration(design, dataset, sims, seed, workers=workers, cluster=cluster,
+                             folder=folder, settings=settings, quiet=quiet)
+    judged = next(v for v in verdicts.decide([], calibration_findings(result)) if v.key == "implementation")
+    command = command or (f"workbench calibrate {target} --data {data} --sims {sims} --seed {seed}"
+                          + "".join(f" --set {k}={v}" for k, v in (options or {}).items())
+                          + "".join(f" --prior {k}={v}" for k, v in (priors or {}).items()))
+    sampling = ({"draws": settings.draws, "tune": settings.tune, "chains": settings.chains}
+                if settings else None)
+    doc = writers.clean({
+        "schema": CALIBRATION_SCHEMA,
+        "recipe": design.name,
+        "design": design.label(),
+        "options": {k: str(v) for k, v in design.options.items()},
+        "priors": dict(design.priors),
+        "seed": seed,
+        "data": {"path": info.path, "sha256": info.sha256, "rows": info.rows},
+        "implementation": judged.to_dict(),
+        "calibration": result.to_dict(),
+        "manifest": plans.manifest(
+            command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=started,
+            plan={"target": str(target), "designs": [design.label()],
+                  "options": {k: str(v) for k, v in (options or {}).items()},
+                  "priors": dict(priors or {}), "sims": sims, "seed": seed, "sampling": sampling}),
+    })
+    out_result = CalibrateResult(design, result, doc, folder)
+    if write:
+        out_result.files = write_calibration(out_result, command)
+        if history:
+            from workbench import history as run_history
+
+            run_history.record(history_path(history), run_history.check_entry(
+                "calibrate", design, {**doc, "assumptions": [doc["implementation"]]},
+                out_result.files["report"]))
+    return out_result
+
+
+def write_calibration(result: CalibrateResult, command: str) -> dict[str, Path]:
+    """calibration.json, calibration.html and notebook.ipynb in the run folder."""
+    from workbench import notebook
+    from workbench.report import calibration_plots, plots
+    from workbench.report import html as report_html
+
+    folder = result.folder
+    figures = [
+        {"uri": plots.to_data_uri(calibration_plots.ecdf_difference_figure(result.calibration)),
+         "caption": "ECDF of the fractional ranks minus the uniform CDF, with the 95% simultaneous band."},
+        {"uri": plots.to_data_uri(calibration_plots.rank_histogram_figure(result.calibration)),
+         "caption": "Rank histograms with the range each bar keeps 99% of the time under uniformity."},
+    ]
+    page = report_html.environment().get_template("calibration.html.j2").render(
+        doc=result.doc, figures=figures, command=command)
+    return {
+        "json": writers.write_json(folder / "calibration.json", result.doc),
+        "report": writers.atomic_write(folder / "calibration.html", page),
+        "notebook": writers.atomic_write(folder / "notebook.ipynb", notebook.for_calibration(result.doc)),
+    }
