@@ -94,7 +94,7 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     keys = pd.DataFrame({"distance": distance, "group": group})
     order = keys.groupby(["group", "distance"], sort=True).ngroup().to_numpy()
     n = order.max() + 1
-    tables.check_size(n, NAME)
+    tables.check_size(n, NAME, what="distinct rows after summing rows with the same distance and group")
     summed = Dataset(
         columns={
             "distance": np.zeros(n),

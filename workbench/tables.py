@@ -21,6 +21,8 @@ from workbench.errors import DataError
 # beyond it the model (one likelihood term per row) grows too big to sample
 # interactively on a laptop. Common practice, not a published figure.
 MAX_MODEL_ROWS = 5_000
+# Counts are read as float64, which holds whole numbers exactly only up to 2^53.
+MAX_COUNT = 2**53
 
 
 def read_table(path: str | Path) -> pd.DataFrame:
@@ -51,13 +53,16 @@ def file_sha256(path: str | Path) -> str:
 
 
 def require_columns(table: pd.DataFrame, names: Iterable[str], recipe: str) -> None:
-    """Every name must be a column; suggest the closest existing name."""
-    present = list(table.columns)
+    """Every name must be a column (suggest the closest existing name), and
+    the table must have a row: every recipe calls this first."""
+    present = [str(c) for c in table.columns]
     for name in names:
         if name not in present:
             close = get_close_matches(name, present, n=1, cutoff=0.6)
-            hint = f"; did you mean '{close[0]}'?" if close else f"; found columns {_short(present)}"
+            hint = f"; did you mean {close[0]!r}?" if close else f"; found columns {_short(present)}"
             raise DataError(f"recipe '{recipe}' needs column '{name}'{hint}")
+    if len(table) == 0:
+        raise DataError(f"recipe '{recipe}': expected at least one data row; found none")
 
 
 def _short(names: list[str]) -> str:
@@ -90,6 +95,10 @@ def count_column(table: pd.DataFrame, name: str, minimum: int = 0) -> np.ndarray
         i = int(low[0])
         expected = "a count >= 0" if minimum == 0 else f"a count >= {minimum}"
         raise DataError(f"column '{name}' row {i + 1}: expected {expected}; found {values[i]:g}")
+    high = np.flatnonzero(values > MAX_COUNT)
+    if high.size:
+        i = int(high[0])
+        raise DataError(f"column '{name}' row {i + 1}: expected a count <= 2^53; found {values[i]:g}")
     return values.astype(np.int64)
 
 
@@ -129,9 +138,14 @@ def not_above(smaller: np.ndarray, larger: np.ndarray, small_name: str, large_na
         )
 
 
-def check_size(rows: int, recipe: str, limit: int = MAX_MODEL_ROWS) -> None:
+def check_size(rows: int, recipe: str, limit: int = MAX_MODEL_ROWS, what: str = "rows") -> None:
+    """Refuse a table that would give a model of more than ``limit`` rows.
+
+    ``what`` names what was counted, e.g. ``"distinct rows after summing rows
+    with the same distance and group"`` for a recipe that sums.
+    """
     if rows > limit:
         raise DataError(
-            f"recipe '{recipe}': expected at most {limit} distinct rows after summing identical "
-            f"covariate rows; found {rows} (aggregate the table or fit a sample of it)"
+            f"recipe '{recipe}': expected at most {limit} {what} (one model term each); found "
+            f"{rows} (aggregate the table or fit a sample of it)"
         )
