@@ -164,11 +164,14 @@ def test_killed_worker_replicates_are_redone_on_local_processes(design_data, ref
         path = tmp_path / sbc.CHECKPOINT
         finished = len(_lines(tmp_path)) - 1 if path.exists() else 0
         if finished >= 2:
-            workers = [p for p in psutil.Process().children(recursive=True)
-                       if p.pid not in before and "spawn_main" in " ".join(p.cmdline())]
-            if workers:
-                killed = (finished, workers[0].pid)
-                workers[0].kill()  # a worker this test's run started
+            for child in psutil.Process().children(recursive=True):
+                try:
+                    if child.pid not in before and "spawn_main" in " ".join(child.cmdline()):
+                        child.kill()  # a worker this test's run started
+                        killed = (finished, child.pid)
+                        break
+                except psutil.NoSuchProcess:
+                    continue
         time.sleep(0.01)
     thread.join()
     assert killed is not None and killed[0] < sims, "the run ended before a worker could be killed"
