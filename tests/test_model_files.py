@@ -337,3 +337,28 @@ def test_user_folder_design_travels_to_worker_processes(user_recipes):
     design = make_design(registry.load([user_recipes]).get("aiming-copy"), {"clearance": CLEARANCE}, {})
     copy = pickle.loads(pickle.dumps(design))
     assert copy.label() == design.label() and copy.recipe.name == "aiming-copy"
+
+
+# --- the README's example ------------------------------------------------------------------
+
+
+EXAMPLE = Path(__file__).parents[1] / "examples" / "sourdough_rise.py"
+
+
+def test_readme_shows_the_example_model_file_in_full():
+    readme = (Path(__file__).parents[1] / "README.md").read_text()
+    assert EXAMPLE.read_text() in readme
+
+
+def test_example_table_is_simulated_from_its_documented_true_values():
+    module = modelfile.load_module(EXAMPLE)
+    written = pd.read_csv(EXAMPLE.with_suffix(".csv"))
+    pd.testing.assert_frame_equal(module.example_table(), written, check_dtype=False)
+
+
+def test_example_story_gives_a_true_value_for_every_free_parameter():
+    design = modelfile.design_from_file(EXAMPLE)
+    data = design.validate(pd.read_csv(EXAMPLE.with_suffix(".csv")))
+    simulated = design.simulate(np.random.default_rng(1), data, {})
+    assert set(simulated.truth) == {rv.name for rv in design.build(data).free_RVs}
+    assert simulated.frame.shape == data.frame.shape
