@@ -186,3 +186,19 @@ def test_plan_with_missing_data_file_exits_2(tmp_path, capsys):
     path.write_text('data = "nowhere.csv"\nrecipe = "timing-curve"\n')
     assert main(["audit", str(path), "--quiet"]) == 2
     assert "nowhere.csv" in capsys.readouterr().err
+
+
+def test_check_reads_the_same_plan_file_and_records_it(funnel, tmp_path):
+    # `workbench check PLAN.toml` runs the plan's design without gates.
+    history_file = tmp_path / "history.sqlite"
+    code = main(["check", str(shared_runs.funnel_plan()), "--out", str(tmp_path / "run"), "--quiet",
+                 "--history", str(history_file)])
+    assert code == 0
+    doc = json.loads((tmp_path / "run" / "summary.json").read_text())
+    _, audited, _ = funnel
+    assert doc["design"] == audited["summary"]["design"] and doc["seed"] == 1
+    assert doc["computation"]["divergences"] == audited["summary"]["computation"]["divergences"]
+    assert doc["manifest"]["plan"]["file"] == str(shared_runs.funnel_plan())
+    from workbench import history
+
+    assert [r.command for r in history.runs(history_file)] == ["check"]

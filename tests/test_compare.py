@@ -205,3 +205,17 @@ def test_designs_of_recipes_that_reject_the_table_stop_before_any_fit(capsys, tm
     assert code == 2 and err.count("\n") == 1
     assert "needs column 'distance'" in err
     assert not (tmp_path / "x").exists()
+
+
+def test_plan_file_lists_designs_as_text_or_tables_with_paths_relative_to_it(tmp_path):
+    plan = tmp_path / "sub" / "designs.toml"
+    plan.parent.mkdir()
+    plan.write_text('data = "../t.csv"\nseed = 4\n'
+                    'designs = ["timing-curve:family=weibull", '
+                    '{recipe = "my_model.py"}, '
+                    '{recipe = "timing-curve", options = {eventual = "all"}, priors = {shape = "lognormal(0,1)"}}]\n')
+    read = plans.read_plan(plan)
+    assert read.data == plan.parent / "../t.csv" and read.seed == 4
+    assert [d.text() for d in read.designs] == [
+        "timing-curve:family=weibull", str((plan.parent / "my_model.py").resolve()),
+        "timing-curve:eventual=all:shape~lognormal(0,1)"]
