@@ -192,7 +192,8 @@ def demo(rng: np.random.Generator) -> DemoScenario:
         "shape": DEMO_TRUTH_DAYS["shape"],
     }
     simulated = simulate(rng, data, truth, design_options)
-    table = simulated.to_frame()[["cohort", "age", "exposed", "solved", "withdrawn"]]
+    table = simulated.to_frame()[["cohort", "age", "exposed", "solved", "withdrawn"]].astype(
+        {"age": int})
     return DemoScenario(
         title="Support tickets: solved or withdrawn",
         story=("A help desk follows each week's new tickets at 1, 2, 4, 7, 14, 28 and 42 days; a "

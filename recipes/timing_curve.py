@@ -159,7 +159,7 @@ def demo(rng: np.random.Generator) -> DemoScenario:
         "eventual": DEMO_TRUTH_DAYS["eventual"],
     }
     simulated = simulate(rng, data, truth, design_options)
-    table = simulated.to_frame()[["cohort", "age", "exposed", "events"]]
+    table = simulated.to_frame()[["cohort", "age", "exposed", "events"]].astype({"age": int})
     return DemoScenario(
         title="Seedling emergence in a tree nursery",
         story=("A nursery sows a tray of native tree seed every other day and counts seedlings at "
