@@ -21,7 +21,7 @@ import numpy as np
 from workbench.checks import Context, check
 from workbench.checks.loo import loo_of
 from workbench.checks.predictive import discrepancies
-from workbench.findings import Finding
+from workbench.findings import COMPUTATION, Finding
 from workbench.statistics import predictive_p_value
 
 
@@ -108,4 +108,37 @@ def statistics_under_relaxations(context: Context) -> list[Finding]:
                     numbers={"relaxation_of": other.key},
                 )
             )
+    return findings
+
+
+@check
+def sampling_under_relaxations(context: Context) -> list[Finding]:
+    """Sampler health of each relaxed fit, filed under ``computation``.
+
+    A misspecified model can have a posterior the sampler cannot explore
+    (separate modes, divergences) that disappears once the failing
+    assumption is relaxed; the verdict step then calls the sampler trouble a
+    symptom rather than a cause.
+    """
+    from workbench.checks.computation import computation_summary
+
+    findings = []
+    for assumption in context.design.assumptions:
+        relaxation = assumption.relaxation
+        if relaxation is None or relaxation.parameter not in context.relaxed:
+            continue
+        numbers = computation_summary(context.relaxed[relaxation.parameter].idata)
+        if any(f.numbers.get("relaxation_of") == assumption.key for f in findings):
+            continue
+        findings.append(
+            Finding(
+                assumption=COMPUTATION,
+                kind="computation_under_relaxation",
+                check=f"sampling|{relaxation.parameter}",
+                value=numbers["max_rhat"],
+                detail=(f"With {assumption.key} relaxed ({relaxation.parameter}): largest R-hat "
+                        f"{numbers['max_rhat']:.3f}, {numbers['divergences']} divergent transitions."),
+                numbers={**numbers, "relaxation_of": assumption.key},
+            )
+        )
     return findings

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import math
 
-from workbench.findings import Finding
+from workbench.findings import COMPUTATION, Finding
 from workbench.verdicts import BROKEN, DOUBTFUL, Judgement, Verdict, rule, settle
 
 # Posterior predictive p-values are conservative (concentrated near 0.5 when
@@ -58,8 +58,19 @@ def expansion(f: Finding) -> Judgement:
     return Judgement(0, f"The expanded model does not need {name} away from its null.")
 
 
+# A relaxed fit counts as sampling cleanly below this R-hat with no
+# divergence (Vehtari et al. 2021 recommend R-hat < 1.01).
+RELAXED_RHAT_OK = 1.01
+
+
 @rule("ppc_under_relaxation")
 def statistic_under_relaxation(f: Finding) -> Judgement:
+    # Read by the side-effect pass below; on its own it argues for nothing.
+    return Judgement(0, "")
+
+
+@rule("computation_under_relaxation")
+def sampling_under_relaxation(f: Finding) -> Judgement:
     # Read by the side-effect pass below; on its own it argues for nothing.
     return Judgement(0, "")
 
@@ -71,16 +82,18 @@ def _relaxation_gain(verdict: Verdict) -> float | None:
 
 @settle
 def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
-    """Demote broken assumptions whose alarm is explained by a stronger failure.
+    """Demote broken verdicts whose alarm is explained by a stronger failure.
 
-    When several assumptions look broken, the one whose relaxation improves
-    prediction most is taken as the cause. Another broken assumption is a
-    symptom of it when its own relaxation gains less and its targeted
-    statistic looks ordinary under the cause's relaxed model; it becomes
-    doubtful with advice to revisit it after fixing the cause.
+    When assumptions with relaxations look broken, the one whose relaxation
+    improves prediction most is taken as the cause. Another broken assumption
+    is a symptom of it when its own relaxation gains less and its targeted
+    statistic looks ordinary under the cause's relaxed model. Broken
+    ``computation`` is a symptom when the cause's relaxed model samples
+    cleanly. A symptom becomes doubtful with advice to revisit it after
+    fixing the cause.
     """
     broken = [v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None]
-    if len(broken) < 2:
+    if not broken:
         return
     cause = max(broken, key=_relaxation_gain)
     cause_gain = _relaxation_gain(cause)
@@ -90,7 +103,19 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
         under = [f.p_value for f, _ in v.evidence
                  if f.kind == "ppc_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
         if under and min(under) >= PPC_DOUBTFUL_P:
-            v.verdict = DOUBTFUL
-            v.advice = (f"Revisit after addressing '{cause.key}': once that assumption is relaxed "
-                        f"this one's statistic looks ordinary (p = {min(under):.2f}).")
-            v.strength = 0.0
+            _demote(v, cause, f"once that assumption is relaxed this one's statistic looks "
+                              f"ordinary (p = {min(under):.2f})")
+    for v in verdicts:
+        if v.key != COMPUTATION or v.verdict != BROKEN:
+            continue
+        relaxed = [f.numbers for f, _ in v.evidence
+                   if f.kind == "computation_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
+        if relaxed and relaxed[0]["max_rhat"] <= RELAXED_RHAT_OK and relaxed[0]["divergences"] == 0:
+            _demote(v, cause, "the sampler explores the relaxed model cleanly, so its trouble here "
+                              "comes from the misfit, not from the parameterisation")
+
+
+def _demote(verdict: Verdict, cause: Verdict, why: str) -> None:
+    verdict.verdict = DOUBTFUL
+    verdict.advice = f"Revisit after addressing '{cause.key}': {why}."
+    verdict.strength = 0.0
