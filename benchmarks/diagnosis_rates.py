@@ -28,6 +28,8 @@ FALSE_ALARM_TARGET = 0.05
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--recipe", action="append", help="recipe name (repeatable; default: all)")
+    parser.add_argument("--scenario", action="append",
+                        help="only this scenario: '(clean)' or an assumption key (repeatable)")
     parser.add_argument("--seeds", type=int, default=20)
     parser.add_argument("--first-seed", type=int, default=1)
     parser.add_argument("--draws", type=int, default=1000)
@@ -46,6 +48,8 @@ def main() -> int:
     for name in names:
         recipe = reg.get(name)
         for scenario, planted in rates.scenarios(recipe).items():
+            if args.scenario and scenario not in args.scenario:
+                continue
             start = time.perf_counter()
             tally = rates.run_scenario(recipe, scenario, planted, seeds, settings, say)
             row = {"recipe": name, **tally.row(), "seconds": round(time.perf_counter() - start, 1),
