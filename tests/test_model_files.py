@@ -362,3 +362,25 @@ def test_example_story_gives_a_true_value_for_every_free_parameter():
     simulated = design.simulate(np.random.default_rng(1), data, {})
     assert set(simulated.truth) == {rv.name for rv in design.build(data).free_RVs}
     assert simulated.frame.shape == data.frame.shape
+
+
+def test_calibrate_command_accepts_a_user_recipe(scratch, user_recipes, throwing_csv):
+    out = scratch / "user-calibration"
+    code = main(["calibrate", "aiming-copy", "--recipes", user_recipes, "--data", throwing_csv,
+                 "--set", f"clearance={CLEARANCE}", "--sims", "4", "--workers", "1", "--out", str(out),
+                 "--quiet", "--history", str(scratch / "history.sqlite")])
+    assert code == 0
+    doc = json.loads((out / "calibration.json").read_text())
+    assert doc["recipe"] == "aiming-copy" and "spread" in doc["calibration"]["parameters"]
+
+
+def test_compare_command_accepts_a_user_recipe_beside_a_model_file(scratch, user_recipes, throwing_csv):
+    out = scratch / "user-comparison"
+    code = main(["compare", "--data", throwing_csv, f"aiming-copy:clearance={CLEARANCE}",
+                 str(FILES / "throwing_geometry.py"), "--recipes", user_recipes, "--no-relax",
+                 "--no-cache", *SAMPLING, "--out", str(out), "--quiet",
+                 "--history", str(scratch / "history.sqlite")])
+    assert code == 0
+    doc = json.loads((out / "compare.json").read_text())
+    assert {row["design"] for row in doc["comparison"]} == {f"aiming-copy:clearance={CLEARANCE}",
+                                                           "throwing_geometry.py"}

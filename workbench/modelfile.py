@@ -40,10 +40,7 @@ quantities such as the minimum, maximum and share of zeros).
 
 from __future__ import annotations
 
-import hashlib
-import importlib.util
 import re
-import sys
 import traceback
 import warnings
 from dataclasses import dataclass, field, replace
@@ -93,18 +90,21 @@ class FrameData:
 
     @property
     def columns(self) -> dict[str, np.ndarray]:
+        """One NumPy array per column, by column name."""
         if self._columns is None:
             self._columns = {str(name): _plain(self.frame[name]) for name in self.frame.columns}
         return self._columns
 
     @property
     def rows(self) -> int:
+        """Rows of the table."""
         return int(len(self.frame))
 
     def __getitem__(self, name: str) -> np.ndarray:
         return self.columns[name]
 
     def to_frame(self) -> pd.DataFrame:
+        """A copy of the table."""
         return self.frame.copy()
 
     def __getstate__(self):
@@ -144,37 +144,36 @@ class ModelFileRecipe:
 
 # --- loading the file ---------------------------------------------------------------------
 
-_MODULES: dict[str, Any] = {}
-
 
 def load_module(path: Path):
-    """Import a model file by path; a changed file is loaded afresh.
+    """Import a model file by path (a changed file is loaded afresh).
 
-    Raises :class:`ModelFileError` naming the file and line of a syntax
-    error or of the statement that failed.
+    Parameters
+    ----------
+    path : Path
+        The model file.
+
+    Returns
+    -------
+    module
+        The imported module, run once per process and file content.
+
+    Raises
+    ------
+    ModelFileError
+        The file is missing, has a syntax error (file:line) or its
+        module-level code raises (file:line of the failing statement).
     """
+    from workbench import registry
+
     if not path.is_file():
         raise ModelFileError(f"model file {str(path)!r}: expected a readable Python file; found none")
-    source = path.read_bytes()
-    digest = hashlib.sha256(source).hexdigest()[:16]
-    key = f"{path.resolve()}:{digest}"
-    if key in _MODULES:
-        return _MODULES[key]
-    name = f"_workbench_model_{digest}_{re.sub(r'[^0-9A-Za-z_]', '_', path.stem)}"
-    spec = importlib.util.spec_from_file_location(name, path)
-    module = importlib.util.module_from_spec(spec)
-    # Registered so that classes and functions of the file pickle by reference.
-    sys.modules[name] = module
     try:
-        spec.loader.exec_module(module)
+        return registry.load_module(path)
     except SyntaxError as err:
-        sys.modules.pop(name, None)
         raise ModelFileError(f"{path}:{err.lineno}: syntax error: {err.msg}") from None
     except Exception as err:  # any error in the user's module-level code
-        sys.modules.pop(name, None)
         raise ModelFileError(f"{_where(path, err)}: loading the model file raised {_describe(err)}") from err
-    _MODULES[key] = module
-    return module
 
 
 def _where(path: Path, err: BaseException) -> str:
@@ -290,6 +289,7 @@ class ModelFileDesign:
 
     @property
     def name(self) -> str:
+        """The file name (the summary's ``recipe`` field)."""
         return self.path.name
 
     def label(self) -> str:
@@ -304,6 +304,7 @@ class ModelFileDesign:
 
     @property
     def outcome_names(self) -> tuple[str, ...]:
+        """The observed variables found by :meth:`validate`."""
         return tuple(self._outcomes)
 
     @property
@@ -328,7 +329,7 @@ class ModelFileDesign:
             raise ModelFileError(f"{self.path}: expected a table with at least one row")
         data = FrameData(table)
         model = self._user_model(self._build_model, data.frame, "build_model")
-        check_observed(self.path, model, table, "build_model")
+        check_observed(self.path, model, "build_model")
         check_initial_point(self.path, model, "build_model")
         self._outcomes = {rv.name: _is_count(model, rv) for rv in model.observed_RVs}
         for assumption in self._assumptions:
@@ -349,7 +350,7 @@ class ModelFileDesign:
                     f"{self.path}: {what} observes {', '.join(observed) or 'nothing'}; expected "
                     f"the variables of build_model ({', '.join(sorted(self._outcomes))})"
                 )
-            check_observed(self.path, relaxed, table, what)
+            check_observed(self.path, relaxed, what)
             check_initial_point(self.path, relaxed, what)
         return data
 
@@ -399,9 +400,8 @@ class ModelFileDesign:
                     f"{self.path}: simulate's true value of '{rv.name}' has shape {found}; "
                     f"expected {expected}"
                 )
-        check_observed(self.path, self._user_model(self._build_model, simulated.frame,
-                                                   "build_model"), simulated.frame,
-                       "build_model on simulated data")
+        on_simulated = self._user_model(self._build_model, simulated.frame, "build_model")
+        check_observed(self.path, on_simulated, "build_model on simulated data")
 
     # -- helpers
 
@@ -562,7 +562,21 @@ def summary_statistic(name: str, summary: str, data, outcomes, draws) -> np.ndar
 def default_assumptions(outcomes: dict[str, bool]) -> tuple[Assumption, ...]:
     """One ``predictions`` assumption entry per (observed variable, summary).
 
-    Counts (discrete, non-negative) also get the share of zeros.
+    Parameters
+    ----------
+    outcomes : dict of str to bool
+        Each observed variable and whether it is a count (discrete and
+        non-negative); counts also get the share of zeros.
+
+    Returns
+    -------
+    tuple of Assumption
+        Entries sharing the key ``predictions``, each with one
+        :func:`summary_statistic` (two-sided).
+
+    References
+    ----------
+    Gelman et al. (2013), Bayesian Data Analysis, 3rd ed., sec. 6.3.
     """
     entries = []
     for name, is_count in outcomes.items():
@@ -591,8 +605,23 @@ def _is_count(model, rv) -> bool:
 # --- checks of a built model ----------------------------------------------------------------
 
 
-def check_observed(path: Path, model, frame: pd.DataFrame, what: str) -> None:
-    """Every observed value is a finite number; else one line naming variable and rows."""
+def check_observed(path: Path, model, what: str) -> None:
+    """Every observed value of ``model`` is a finite number.
+
+    Parameters
+    ----------
+    path : Path
+        The model file (named in the message).
+    model : pymc.Model
+        A model built by the file.
+    what : str
+        Which builder made it, for the message.
+
+    Raises
+    ------
+    ModelFileError
+        Naming the variable and the positions of missing or infinite values.
+    """
     from pymc.backends.arviz import find_observations
 
     for name, values in find_observations(model).items():
@@ -634,9 +663,21 @@ def _rows(rows: np.ndarray) -> str:
 def check_initial_point(path: Path, model, what: str) -> None:
     """The log-probability of every variable is finite at the model's initial point.
 
-    Names the first variable whose log-probability is -inf or NaN there (the
-    sampler could not start). Uses ``model.point_logps`` at
-    ``model.initial_point()``.
+    Parameters
+    ----------
+    path : Path
+        The model file (named in the message).
+    model : pymc.Model
+        A model built by the file.
+    what : str
+        Which builder made it, for the message.
+
+    Raises
+    ------
+    ModelFileError
+        Naming the first variable whose log-probability (``model.point_logps``
+        at ``model.initial_point()``) is -inf or NaN: the sampler could not
+        start there.
     """
     try:
         with warnings.catch_warnings():
@@ -668,11 +709,19 @@ def check_initial_point(path: Path, model, what: str) -> None:
 
 
 def container_names(model) -> dict[str, str]:
-    """Observed variable -> the name of the data container that holds its values.
+    """The data container of each observed variable.
 
-    A variable observed through ``pm.Data`` keeps that container; one
-    observed through constants gets ``<name>_observed`` (``_`` added until
-    the name is free).
+    Parameters
+    ----------
+    model : pymc.Model
+
+    Returns
+    -------
+    dict of str to str
+        Observed variable -> container name. A variable observed through
+        ``pm.Data`` keeps that container; one observed through constants gets
+        ``<name>_observed`` (``_`` added until the name is free), the name
+        :func:`with_data_containers` gives it.
     """
     from pytensor.compile.sharedvalue import SharedVariable
 
@@ -694,9 +743,17 @@ def container_names(model) -> dict[str, str]:
 def with_data_containers(model):
     """The model with every constant observed value moved into a data container.
 
-    Returns the model itself when every observed variable already reads a
-    ``pm.Data`` container; otherwise an equivalent model rebuilt through
-    PyMC's function-graph form (so the compiled sampler can swap outcomes).
+    Parameters
+    ----------
+    model : pymc.Model
+
+    Returns
+    -------
+    pymc.Model
+        ``model`` itself when every observed variable already reads a
+        ``pm.Data`` container; otherwise an equivalent model rebuilt through
+        PyMC's function-graph form, with the same log-probability, whose
+        outcomes a compiled sampler can swap (see :func:`container_names`).
     """
     import pytensor
     from pymc.model.fgraph import (

@@ -116,8 +116,12 @@ def recipe_from_file(source: str, name: str) -> Recipe:
 
 
 def load_module(path: Path):
-    """Import a Python file by path under a private module name (once per process)."""
-    key = str(path.resolve())
+    """Import a Python file by path under a private module name.
+
+    Once per process and file content: a file edited since it was loaded
+    (say, between two checks in one notebook session) is loaded afresh.
+    """
+    key = f"{path.resolve()}:{hashlib.sha1(path.read_bytes()).hexdigest()}"
     if key in _MODULES:
         return _MODULES[key]
     digest = hashlib.sha1(key.encode()).hexdigest()[:12]
