@@ -658,7 +658,8 @@ class Checkpoint:
         """Read finished replicates (refusing another run's file), then open for appending."""
         self.path.parent.mkdir(parents=True, exist_ok=True)
         records: dict[int, dict] = {}
-        if self.path.exists() and self.path.stat().st_size:
+        # A file without one whole line was cut while its header was written.
+        if self.path.exists() and b"\n" in self.path.read_bytes():
             found, records, keep = read_checkpoint(self.path)
             _refuse_other_run(self.path, found, self.header)
             with open(self.path, "r+b") as f:
