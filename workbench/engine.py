@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import logging
 import os
+import sys
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -63,8 +64,13 @@ class Sampler:
         settings: Settings,
         observed: Mapping[str, np.ndarray] | None = None,
         progress: bool = False,
+        label: str = "sampling",
     ) -> xr.DataTree:
-        """Posterior and sample_stats for the given observed containers."""
+        """Posterior and sample_stats for the given observed containers.
+
+        ``progress`` shows nutpie's bar on a terminal and plain ``label:``
+        lines with counts and time left elsewhere (logs, CI).
+        """
         import nutpie
 
         compiled = self.compiled
@@ -75,19 +81,45 @@ class Sampler:
             # A container the log-density never reads is not part of the compiled model.
             compiled = compiled.with_data(
                 **{k: np.asarray(v) for k, v in observed.items() if k in self.data_names})
-        trace = nutpie.sample(
-            compiled,
-            draws=settings.draws,
-            tune=settings.tune,
-            chains=settings.chains,
-            cores=min(settings.cores, settings.chains),
-            seed=seed,
-            progress_bar=progress,
-            save_warmup=False,
-        )
+        terminal = sys.stderr.isatty()
+        lines = _SamplingLines(settings, label) if progress and not terminal else None
+        try:
+            trace = nutpie.sample(
+                compiled,
+                draws=settings.draws,
+                tune=settings.tune,
+                chains=settings.chains,
+                cores=min(settings.cores, settings.chains),
+                seed=seed,
+                progress_bar=progress and terminal,
+                progress_callback=lines,
+                save_warmup=False,
+            )
+        finally:
+            if lines is not None:
+                lines.bar.close()
         return xr.DataTree.from_dict(
             {"posterior": trace["posterior"].to_dataset(), "sample_stats": trace["sample_stats"].to_dataset()}
         )
+
+
+class _SamplingLines:
+    """nutpie's progress callback feeding plain progress lines (draws of all chains)."""
+
+    def __init__(self, settings: Settings, label: str):
+        from workbench.progress import Progress
+
+        self.bar = Progress(settings.chains * (settings.draws + settings.tune), label)
+        self.done = 0
+
+    def __call__(self, chains) -> None:
+        try:
+            done = sum(int(chain.finished_draws) for chain in chains)
+            if done > self.done:
+                self.bar.advance(done - self.done)
+                self.done = done
+        except Exception:  # progress output must never stop a sampler
+            pass
 
 
 @dataclass
@@ -166,7 +198,8 @@ def fit(
     else:
         groups["observed_data"] = _observed_data(model)
     say(f"{label}: sampling {settings.chains} chains")
-    posterior = sampler.run(seeds["posterior"], settings, observed=observed, progress=progress)
+    posterior = sampler.run(seeds["posterior"], settings, observed=observed, progress=progress,
+                            label=f"{label}: sampling")
     groups.update({name: posterior[name].to_dataset() for name in posterior.children})
     idata = xr.DataTree.from_dict(groups)
     say(f"{label}: log-likelihood" + (" and posterior predictive" if predictive else ""))

@@ -11,7 +11,7 @@ import platform
 import sys
 import time
 import warnings
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from importlib import metadata
@@ -21,6 +21,7 @@ from typing import Any, Callable
 from workbench import checks, engine, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
+from workbench.progress import Progress
 
 # Versions recorded in every manifest: the interpreter and each scientific
 # dependency whose numbers could change a result.
@@ -99,13 +100,16 @@ def _fit_relaxed(design, data, parameter: str, seed: int, settings: engine.Setti
 
 
 def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
-                    say: Callable[[str], None], fitter=None) -> dict[str, engine.Fit]:
+                    say: Callable[[str], None], fitter=None, progress: bool = False
+                    ) -> dict[str, engine.Fit]:
     """Fit every declared relaxation, in parallel worker processes.
 
     Each expanded model is compiled once in its worker. With ``workers=1``
     they run in this process and reuse its compiled models (the fast path for
     many runs of one design). Seeds derive from the run seed and the
-    parameter name, so results do not depend on scheduling.
+    parameter name, so results do not depend on scheduling. ``progress``
+    counts finished models on standard error (a bar on a terminal, plain
+    lines elsewhere).
     """
     names = list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
                                if a.relaxation is not None and a.relaxation.applies_to(design.options)))
@@ -116,23 +120,27 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     if workers == 1:
         say(f"fitting {len(names)} relaxed model(s) in this process")
         out = {}
-        for n in names:
-            idata, seconds = _fit_relaxed(design, data, n, seeds[f"relax:{n}"], settings, fitter)
-            out[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
+        with Progress(len(names), "relaxed models", quiet=not progress) as bar:
+            for n in names:
+                idata, seconds = _fit_relaxed(design, data, n, seeds[f"relax:{n}"], settings, fitter)
+                out[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
+                bar.advance()
         return out
     say(f"fitting {len(names)} relaxed model(s) on {workers} process(es)")
     # Threads would share one interpreter lock and PyTensor's compile lock;
     # separate processes compile in parallel. "spawn" avoids forking a process
     # that already runs sampler threads.
-    with ProcessPoolExecutor(workers, mp_context=get_context("spawn")) as pool:
-        futures = {n: pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings, fitter)
+    done = {}
+    with ProcessPoolExecutor(workers, mp_context=get_context("spawn")) as pool, \
+            Progress(len(names), "relaxed models", quiet=not progress) as bar:
+        futures = {pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings, fitter): n
                    for n in names}
-        out = {}
-        for n, future in futures.items():
+        for future in as_completed(futures):
             idata, seconds = future.result()
-            out[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
-            say(f"relaxed model '{n}' done in {seconds:.0f} s")
-    return out
+            n = futures[future]
+            done[n] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{n}")
+            bar.advance()
+    return {n: done[n] for n in names}
 
 
 def run_check(
@@ -159,7 +167,7 @@ def run_check(
     main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
                                   label=design.name, say=say)
     relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
-                              fitter) if relax else {}
+                              fitter, progress) if relax else {}
     calibration = calibrate() if calibrate else None
     context = checks.Context(design, data, main, relaxed, calibration)
     say("running checks")

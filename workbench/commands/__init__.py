@@ -55,7 +55,8 @@ def say(args):
 
 
 def show_progress(args) -> bool:
-    return not getattr(args, "quiet", False) and sys.stderr.isatty()
+    """Progress of long work unless --quiet: a bar on a terminal, plain lines in logs."""
+    return not getattr(args, "quiet", False)
 
 
 def settings(args):
