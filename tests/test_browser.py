@@ -48,7 +48,7 @@ def run_folder(tmp_path_factory, throwing_csv):
     out = tmp_path_factory.mktemp("browser") / "run"
     code = main(["check", "threshold-geometry", "--data", throwing_csv, "--set", "clearance=0.25",
                  "--out", str(out), "--seed", "5", "--draws", "200", "--tune", "200", "--no-relax",
-                 "--quiet"])
+                 "--quiet", "--history", str(out.parent / "history.sqlite")])
     assert code == 0
     return out
 

@@ -115,7 +115,8 @@ def grouped_run(tmp_path_factory):
     out = folder / "out"
     # One spread per group (no pooling): the labels become a model coordinate.
     code = main(["check", "threshold-geometry", "--data", str(data), "--set", "clearance=0.25",
-                 "--set", "pooling=none", "--out", str(out), *SMALL_RUN])
+                 "--set", "pooling=none", "--out", str(out), *SMALL_RUN,
+                 "--history", str(folder / "history.sqlite")])
     assert code == 0
     return out, data
 
@@ -160,7 +161,8 @@ def outcome_run(tmp_path_factory):
     data = hostile_file(folder, table)
     out = folder / "out"
     code = main(["check", "competing-risks", "--data", str(data), "--set",
-                 f"outcomes={','.join(OUTCOME_NAMES)}", "--out", str(out), *SMALL_RUN])
+                 f"outcomes={','.join(OUTCOME_NAMES)}", "--out", str(out), *SMALL_RUN,
+                 "--history", str(folder / "history.sqlite")])
     assert code == 0
     return out, data, list(label.values())
 
@@ -255,7 +257,8 @@ def model_file_run(tmp_path_factory):
     data = folder / "values.csv"
     pd.DataFrame({"value": np.random.default_rng(5).normal(1.0, 1.0, 30)}).to_csv(data, index=False)
     out = folder / "out"
-    code = main(["check", str(model), "--data", str(data), "--out", str(out), *SMALL_RUN])
+    code = main(["check", str(model), "--data", str(data), "--out", str(out), *SMALL_RUN,
+                 "--history", str(folder / "history.sqlite")])
     assert code == 0
     return out
 
