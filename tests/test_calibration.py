@@ -355,6 +355,30 @@ def test_chi_square_matches_scipy_on_binned_ranks():
     assert test.chi2_p_value == pytest.approx(expected.pvalue)
 
 
+# --- figures --------------------------------------------------------------------------------
+
+
+def test_figures_have_one_panel_per_ranked_quantity(reference):
+    from workbench.report.calibration_plots import ecdf_difference_figure, rank_histogram_figure
+
+    for draw in (ecdf_difference_figure, rank_histogram_figure):
+        fig = draw(reference)
+        titles = [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()]
+        assert [t.split()[0] for t in titles] == list(reference.ranks)
+
+
+def test_figures_draw_user_names_as_written(tmp_path):
+    from workbench.report.calibration_plots import ecdf_difference_figure
+
+    name = "rate$\\undefined$"  # mathtext would abort on the unknown command
+    rng = np.random.default_rng(7)
+    records = {i: {"index": i, "failed": None, "ranks": {name: int(r)}}
+               for i, r in enumerate(rng.integers(0, L + 1, size=30))}
+    fig = ecdf_difference_figure(sbc.summarise(records, 30, L))
+    fig.savefig(tmp_path / "ecdf.png")
+    assert fig.axes[0].get_title(loc="left").startswith(name)
+
+
 # --- the verdict rule ----------------------------------------------------------------------
 
 

@@ -20,23 +20,33 @@ arXiv:1804.06788 (rank histograms with a binomial band).
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
 from matplotlib.figure import Figure
 from scipy import stats
 
+from workbench.report.plots import ALERT, FAINT, FIT, INK, literal_text, shorten_texts
 from workbench.uniformity import BAND_LEVEL, ecdf_counts, ecdf_points, simultaneous_band
-
-INK = "#1d2433"
-FIT = "#2a7f7a"
-ALERT = "#a23b2a"
-FAINT = "#9aa3ad"
 # The histogram band holds each bar 99% of the time (Talts et al. 2018 use 99%).
 HISTOGRAM_BAND = 0.99
 # Aim for about this many ranks per histogram bar so bars are not all noise.
 RANKS_PER_BAR = 10
 COLUMNS = 3
+
+
+def _literal(draw):
+    """Quantity names are user text: draw them as written and cut long ones."""
+
+    @functools.wraps(draw)
+    def drawn(*args, **kwargs) -> Figure:
+        with literal_text():
+            fig = draw(*args, **kwargs)
+        shorten_texts(fig)
+        return fig
+
+    return drawn
 
 
 def _grid(count: int, columns: int, width: float = 3.2, height: float = 2.4):
@@ -56,6 +66,7 @@ def _names(result, names):
     return chosen
 
 
+@_literal
 def ecdf_difference_figure(result, names=None, level: float = BAND_LEVEL,
                            columns: int = COLUMNS) -> Figure:
     """ECDF-difference plot with simultaneous bands, one panel per quantity.
@@ -113,6 +124,7 @@ def ecdf_difference_figure(result, names=None, level: float = BAND_LEVEL,
     return fig
 
 
+@_literal
 def rank_histogram_figure(result, names=None, bins: int | None = None,
                           columns: int = COLUMNS) -> Figure:
     """Rank histograms with the 99% range of each bar under uniformity.
