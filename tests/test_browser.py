@@ -211,6 +211,35 @@ def test_verdict_states_differ_in_words_and_shapes_without_colour(run_folder, vi
     v.page.locator("#diagnosis").screenshot(path=artifact("report-greyscale.png"))
 
 
+def _luminance(rgb: str) -> float:
+    """Relative luminance of a CSS ``rgb(r, g, b)`` colour (WCAG 2.1, definition of relative luminance)."""
+    channels = [int(c) / 255 for c in re.findall(r"\d+", rgb)[:3]]
+    linear = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in channels]
+    return 0.2126 * linear[0] + 0.7152 * linear[1] + 0.0722 * linear[2]
+
+
+# WCAG 2.1 success criterion 1.4.3: normal-size text needs a 4.5:1 contrast ratio.
+MIN_CONTRAST = 4.5
+
+
+def test_every_verdict_word_has_enough_contrast(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    colours = v.page.evaluate(
+        """states => states.map(s => {
+            const b = document.createElement('span');
+            b.className = 'badge ' + s; b.textContent = 'x';
+            document.querySelector('#diagnosis td:nth-child(3)').appendChild(b);
+            let e = b, bg = 'rgba(0, 0, 0, 0)';
+            while (e && (bg === 'rgba(0, 0, 0, 0)' || bg === 'transparent')) {
+                bg = getComputedStyle(e).backgroundColor; e = e.parentElement;
+            }
+            return [getComputedStyle(b).color, bg];
+        })""", list(BADGES))
+    for state, (fg, bg) in zip(BADGES, colours):
+        light, dark = sorted((_luminance(fg), _luminance(bg)), reverse=True)
+        assert (light + 0.05) / (dark + 0.05) >= MIN_CONTRAST, (state, fg, bg)
+
+
 def _pdf_objects(pdf: bytes) -> dict[int, bytes]:
     return {int(n): body for n, body in re.findall(rb"(?s)(\d+) 0 obj\s*(.*?)endobj", pdf)}
 
