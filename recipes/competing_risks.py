@@ -78,7 +78,7 @@ def _shares(params: dict, k: int) -> np.ndarray:
     if "share" in params:
         share = np.asarray(params["share"], dtype=float).reshape(k)
     else:
-        weight = np.asarray(params["share_weight"], dtype=float).reshape(-1)
+        weight = np.exp(np.append(0.0, np.asarray(params["share_logit"], dtype=float).reshape(-1)))
         share = weight[:k] / weight.sum()
     return share * (1.0 - float(params.get("unresolved", 0.0)))
 
@@ -87,7 +87,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     """Follow every unit: draw its outcome, then its age at the end; count per table age.
 
     ``params`` is one draw of the model's variables (``scale`` or
-    ``scale_group``, ``shape``, ``share`` or ``share_weight``) and may carry
+    ``scale_group``, ``shape``, ``share`` or ``share_logit``) and may carry
     ``unresolved``, ``curve_power``, ``cohort_sd`` or ``cohort_effect`` and
     ``overdispersion`` to plant faults.
     """
@@ -112,13 +112,13 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     k = len(data.extra["outcomes"])
     model_coords = cohorts.coords(data)
     estimate = options["resolve"] == "estimate"
-    model_coords["part"] = data.extra["outcomes"] + (["open"] if estimate else [])
+    # Log-odds of every part against the first outcome (the reference).
+    model_coords["part"] = data.extra["outcomes"][1:] + (["open"] if estimate else [])
     with pm.Model(coords=model_coords) as model:
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",))
         shape = prior("shape", dims="outcome")
-        # Normalised gamma weights: a symmetric Dirichlet over the parts.
-        weight = prior("share_weight", dims="part")
-        parts = weight / weight.sum()
+        logit = prior("share_logit", dims="part")
+        parts = pt.special.softmax(pt.concatenate([pt.zeros(1), logit]), axis=-1)
         share = parts[:k]
         if estimate:
             pm.Deterministic("open_share", parts[k])
@@ -222,9 +222,10 @@ RECIPE = Recipe(
     options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.CENTRED),
     parameters=(
         *cohorts.TIMING_PARAMETERS,
-        # Gamma(1, 1) weights normalised to shares: a uniform Dirichlet over
-        # the outcomes (and the open part under resolve=estimate).
-        Parameter("share_weight", "unnormalised weight of each outcome's share", "gamma(1,1)"),
+        # Log-odds against the first outcome: sd 1.5 keeps a share between
+        # about 5% and 95% of the pair a priori without favouring either.
+        Parameter("share_logit", "log-odds of each later outcome (and the open part) against the first",
+                  "normal(0,1.5)"),
         # Relaxation parameters (only present in the expanded models).
         Parameter("unresolved", "share of units that never end (resolve=all relaxed)", "beta(1,20)"),
         *cohorts.RELAXATION_PARAMETERS,

@@ -5,8 +5,8 @@ probability ``P[i, j]`` (staying is a move to i), independently of the other
 units and of its past (a discrete-time Markov chain). End stages (option
 ``absorbing``) hold their units for good. With ``moves=forward`` a unit can
 stay, move to a later stage in the ``stages`` order, or move to any end stage;
-with ``moves=any`` every move is possible. Each transient row of P has a
-uniform Dirichlet prior (normalised gamma weights ``transition_weight``).
+with ``moves=any`` every move is possible. Each allowed move out of a
+transient stage has a log-odds ``move_logit`` against staying (softmax rows).
 
 Data. The table counts the units of each cohort in each stage at consecutive
 periods; every unit is counted in exactly one stage each period.
@@ -213,23 +213,27 @@ def observed(data: Dataset) -> dict:
 # --- transition matrices ------------------------------------------------------------------
 
 
+def _moves(data: Dataset) -> tuple[np.ndarray, np.ndarray]:
+    """(from, to) indices of the allowed moves out of transient stages, staying excluded."""
+    allowed, end = data.extra["allowed"], data.extra["absorbing"]
+    return np.nonzero(allowed & ~end[:, None] & ~np.eye(len(end), dtype=bool))
+
+
 def move_labels(data: Dataset) -> list[str]:
-    stages, allowed = data.extra["stages"], data.extra["allowed"]
-    transient = ~data.extra["absorbing"]
-    return [f"{stages[i]}>{stages[j]}" for i, j in zip(*np.nonzero(allowed & transient[:, None]))]
+    """Names of the moves that carry a log-odds parameter, e.g. ``applied>training``."""
+    stages = data.extra["stages"]
+    return [f"{stages[i]}>{stages[j]}" for i, j in zip(*_moves(data))]
 
 
-def _matrix_from_weights(data: Dataset, weight):
-    """Row-normalised transition matrices (..., S, S) from weights of the allowed moves."""
+def _matrix_from_logits(data: Dataset, logit):
+    """Transition matrices (..., S, S): each move's log-odds against staying, rows normalised."""
     import pytensor.tensor as pt
 
-    allowed, end = data.extra["allowed"], data.extra["absorbing"]
-    rows, cols = np.nonzero(allowed & ~end[:, None])
-    s = len(end)
-    lead = tuple(weight.shape[:-1]) if weight.ndim > 1 else ()
-    m = pt.zeros((*lead, s, s))
-    m = pt.set_subtensor(m[..., rows, cols], weight)
-    m = pt.set_subtensor(m[..., np.flatnonzero(end), np.flatnonzero(end)], 1.0)
+    rows, cols = _moves(data)
+    s = len(data.extra["absorbing"])
+    lead = tuple(logit.shape[:-1]) if logit.ndim > 1 else ()
+    m = pt.set_subtensor(pt.zeros((*lead, s, s))[..., rows, cols], pt.exp(logit))
+    m = m + np.eye(s)  # staying (and every end stage holding its units) has weight 1
     return m / m.sum(axis=-1, keepdims=True)
 
 
@@ -240,27 +244,22 @@ def transition_matrices(data: Dataset, options: dict, prior):
 
     pooling = data.extra["pooling"]
     n_groups = len(data.labels["group"])
-    allowed, end = data.extra["allowed"], data.extra["absorbing"]
     dims = ("group", "from", "to")
     if pooling == "none":
-        weight = prior("transition_weight", dims=("group", "move"))
-        per_group = _matrix_from_weights(data, weight)
+        per_group = _matrix_from_logits(data, prior("move_logit", dims=("group", "move")))
     else:
-        common = pm.Deterministic("transition", _matrix_from_weights(data, prior("transition_weight",
-                                                                                   dims="move")),
-                                  dims=("from", "to"))
+        logit = prior("move_logit", dims="move")
+        common = pm.Deterministic("transition", _matrix_from_logits(data, logit), dims=("from", "to"))
         if pooling == "complete":
             per_group = pt.broadcast_to(common, (n_groups, *common.shape))
         else:
-            spread = prior("transition_sd")  # sd of log move probabilities across groups
-            rows, cols = np.nonzero(allowed & ~end[:, None])
-            log_common = pt.log(common[rows, cols])
+            spread = prior("transition_sd")  # sd of move log-odds across groups
             if options.get("centred"):
-                log_w = pm.Normal("log_transition_group", log_common, spread, dims=("group", "move"))
+                group_logit = pm.Normal("move_logit_group", logit, spread, dims=("group", "move"))
             else:
                 z = pm.Normal("transition_offset", 0.0, 1.0, dims=("group", "move"))
-                log_w = log_common + spread * z
-            per_group = _matrix_from_weights(data, pt.exp(log_w))
+                group_logit = logit + spread * z
+            per_group = _matrix_from_logits(data, group_logit)
     return pm.Deterministic("transition_group", per_group, dims=dims)
 
 
@@ -607,10 +606,10 @@ RECIPE = Recipe(
     ),
     options=(STAGES, ABSORBING, MOVES, POOLING, CENTRED),
     parameters=(
-        # Gamma(1, 1) weights normalised per row: a uniform Dirichlet over the
-        # allowed moves of each transient stage.
-        Parameter("transition_weight", "unnormalised weight of each allowed move", "gamma(1,1)"),
-        Parameter("transition_sd", "sd of log move probabilities across groups (partial pooling)",
+        # Log-odds against staying: sd 1.5 lets a move be from rare (5%) to
+        # dominant (95%) relative to staying, without favouring either.
+        Parameter("move_logit", "log-odds of each allowed move against staying", "normal(0,1.5)"),
+        Parameter("transition_sd", "sd of move log-odds across groups (partial pooling)",
                   "halfnormal(0.5)"),
         # Relaxation parameters (only present in the expanded models).
         Parameter("dormant", "per-period chance that a transient unit falls silent in its stage",

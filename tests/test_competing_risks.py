@@ -82,7 +82,8 @@ def test_model_cell_probabilities_follow_the_mixture_story():
     ref = data.extra["age_ref"]
     share = np.array([0.55, 0.45])
     scale, shape = np.array([0.7, 1.6]), np.array([1.2, 2.0])
-    model = pm.do(design.build(data), {"share_weight": share, "scale": scale, "shape": shape})
+    logit = np.log(share[1:] / share[0])
+    model = pm.do(design.build(data), {"share_logit": logit, "scale": scale, "shape": shape})
     p = pm.draw(model["y"].owner.inputs[-1], mode=QUICK)
 
     def c(age):

@@ -114,8 +114,8 @@ def test_forward_moves_allow_staying_later_stages_and_end_stages_only():
 
 def test_model_expected_shares_are_previous_shares_times_the_matrix():
     design, data = validated(small_table())
-    weights = np.array([0.5, 0.35, 0.0001, 0.15, 0.6, 0.3, 0.1])  # allowed moves, row by row
-    model = pm.do(design.build(data), {"transition_weight": weights})
+    logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])  # allowed moves against staying, row by row
+    model = pm.do(design.build(data), {"move_logit": logits})
     expected, transition = pm.draw([model["expected"], model["transition"]], mode=QUICK)
     previous = RECIPE.observed(data)["previous"]
     np.testing.assert_allclose(transition[:2].sum(axis=1), 1.0)
@@ -169,9 +169,9 @@ def test_drift_relaxed_model_adds_stay_drift():
 def test_dormant_model_at_its_null_equals_the_plain_model():
     design, data = validated(small_table())
     relaxation = next(a.relaxation for a in RECIPE.assumptions if a.key == "no_missing_exit")
-    weights = np.array([0.5, 0.35, 0.0001, 0.15, 0.6, 0.3, 0.1])
-    plain = pm.do(design.build(data), {"transition_weight": weights})
-    relaxed = pm.do(design.build(data, relaxation), {"transition_weight": weights, "dormant": 0.0})
+    logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])
+    plain = pm.do(design.build(data), {"move_logit": logits})
+    relaxed = pm.do(design.build(data, relaxation), {"move_logit": logits, "dormant": 0.0})
     np.testing.assert_allclose(pm.draw(relaxed["expected"], mode=QUICK), pm.draw(plain["expected"], mode=QUICK),
                                atol=1e-9)
 
