@@ -17,6 +17,7 @@ and runs two at once) and a corrupt cached fit is detected by its hash
 
 from __future__ import annotations
 
+import ast
 import json
 import os
 import signal
@@ -255,6 +256,73 @@ def test_rerun_with_force_completes_every_file_and_quiet_prints_nothing(previous
     doc = json.loads((previous["out"] / "summary.json").read_text(encoding="utf-8"))
     assert doc["seed"] == 31
     assert_history_consistent(history)
+
+
+# --- every writer in the code base ------------------------------------------------------------------
+
+# Calls that put bytes in a file; each must go through workbench.writers.
+WRITE_CALLS = {"write_text", "write_bytes", "to_netcdf", "to_parquet", "to_zarr", "to_excel", "to_pickle",
+               "savefig", "dump"}
+# Calls that write a file only when given a path (without one they return text).
+WRITE_WITH_PATH = {"to_csv", "to_json"}
+# (file, enclosing function) allowed to write directly, and why.
+DIRECT_WRITERS = {
+    ("workbench/writers.py", "write"): "the atomic writer's own temporary file",
+    ("workbench/calibration.py", "open"): "the calibration checkpoint: an append-only log of whole, "
+                                          "synced lines; a torn last line is dropped on resume",
+    ("workbench/report/plots.py", "to_data_uri"): "a PNG into an in-memory buffer",
+}
+
+
+def _writes_in_place(call: ast.Call) -> bool:
+    f = call.func
+    name = f.attr if isinstance(f, ast.Attribute) else getattr(f, "id", None)
+    if name in WRITE_CALLS:
+        return bool(call.args or call.keywords)
+    if name in WRITE_WITH_PATH:
+        return bool(call.args) or any(k.arg == "path_or_buf" for k in call.keywords)
+    if name == "open":
+        mode = call.args[1] if len(call.args) > 1 else next(
+            (k.value for k in call.keywords if k.arg == "mode"), None)
+        return isinstance(mode, ast.Constant) and any(c in str(mode.value) for c in "wax+")
+    return False
+
+
+def direct_writes(root: Path) -> list[tuple[str, str, int]]:
+    """(file, enclosing function, line) of every call that writes a file in place."""
+    found = []
+    for path in sorted([*root.glob("workbench/**/*.py"), *root.glob("recipes/*.py")]):
+        stack: list[str] = []
+
+        def visit(node):
+            named = isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef))
+            if named:
+                stack.append(node.name)
+            if isinstance(node, ast.Call) and _writes_in_place(node):
+                found.append((path.relative_to(root).as_posix(), stack[-1] if stack else "<module>",
+                              node.lineno))
+            for child in ast.iter_child_nodes(node):
+                visit(child)
+            if named:
+                stack.pop()
+
+        visit(ast.parse(path.read_text(encoding="utf-8")))
+    return found
+
+
+def test_every_writer_in_the_code_goes_through_the_atomic_writers():
+    root = Path(__file__).resolve().parents[1]
+    direct = [(f, fn, line) for f, fn, line in direct_writes(root) if (f, fn) not in DIRECT_WRITERS]
+    assert direct == [], "write through workbench.writers.atomic_write instead"
+
+
+def test_the_scan_finds_a_direct_write(tmp_path):
+    (tmp_path / "workbench").mkdir()
+    (tmp_path / "workbench" / "careless.py").write_text(
+        "def save(path, text):\n    open(path, 'w').write(text)\n\n"
+        "def table(frame, path):\n    frame.to_csv(path)\n")
+    assert direct_writes(tmp_path) == [("workbench/careless.py", "save", 2),
+                                       ("workbench/careless.py", "table", 5)]
 
 
 # --- run folders -----------------------------------------------------------------------------------
