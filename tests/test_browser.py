@@ -286,3 +286,54 @@ def test_print_starts_each_section_on_a_new_page(run_folder, visit):
     for section in SECTIONS[1:]:
         _, top, height = dests[section]
         assert top >= height - TOP_SLACK_PT, f"section {section} starts {height - top:.0f} pt below the page top"
+
+
+# --- the comparison and audit pages ------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def companion_pages():
+    """compare.html and audit.html of the runs the compare and audit tests share (computed once)."""
+    import shared_runs
+
+    code, compared = shared_runs.comparison()
+    assert code == 0
+    code, audited = shared_runs.funnel_audit()
+    assert code in (0, 1)  # 1: a gate failed, which is what this audit is for
+    return {"compare": compared / "compare.html", "audit": audited / "audit.html"}
+
+
+PAGES = ("compare", "audit")
+
+
+@pytest.mark.parametrize("name", PAGES)
+def test_page_loads_without_errors_or_network_requests(companion_pages, visit, name):
+    v = visit(companion_pages[name])
+    v.page.wait_for_load_state("load")
+    assert v.errors == [] and v.refused == []
+    assert all(url.startswith(("file://", "data:")) for url in v.requests), v.requests
+
+
+@pytest.mark.parametrize("name", PAGES)
+def test_page_figures_are_visible_and_links_lead_somewhere(companion_pages, visit, name):
+    v = visit(companion_pages[name])
+    images = v.page.locator("img")
+    for i in range(images.count()):
+        images.nth(i).scroll_into_view_if_needed()
+        assert images.nth(i).evaluate("e => e.complete && e.naturalWidth > 0 && e.getBoundingClientRect().width > 0")
+    for href in v.page.eval_on_selector_all("a[href]", "as => as.map(a => a.getAttribute('href'))"):
+        if href.startswith("#"):
+            assert v.page.locator(f"[id='{href[1:]}']").count() == 1, href
+        else:  # a design's or the check's own report beside this page
+            assert (companion_pages[name].parent / href).is_file(), href
+    v.page.screenshot(path=artifact(f"{name}-desktop.png"), full_page=True)
+
+
+@pytest.mark.parametrize("name", PAGES)
+def test_page_does_not_scroll_sideways_on_a_phone(companion_pages, visit, name):
+    v = visit(companion_pages[name], PHONE)
+    page_width, inner = v.page.evaluate("() => [document.scrollingElement.scrollWidth, window.innerWidth]")
+    assert page_width <= inner
+    for widths in v.page.eval_on_selector_all("table.verdicts", "ts => ts.map(t => [t.scrollWidth, t.clientWidth])"):
+        assert widths[0] <= widths[1]
+    v.page.screenshot(path=artifact(f"{name}-phone.png"), full_page=True)
