@@ -31,13 +31,11 @@ DESKTOP = {"width": 1280, "height": 900}
 TOP_SLACK_PT = 72.0
 SECTIONS = ("diagnosis", "evidence", "fit", "sampler", "loo", "manifest")
 
-pytestmark = [
-    pytest.mark.browser,
-    # CI installs Chromium (.ci/run), so there a missing browser fails instead of skipping.
-    pytest.mark.skipif(not CHROMIUM.exists() and not os.environ.get("CI"),
-                       reason="Debian's chromium is not installed at /usr/bin/chromium "
-                              "(apt-get install chromium chromium-driver)"),
-]
+# CI installs Chromium (.ci/run), so there a missing browser fails instead of skipping.
+NEEDS_CHROMIUM = pytest.mark.skipif(not CHROMIUM.exists() and not os.environ.get("CI"),
+                                    reason="Debian's chromium is not installed at /usr/bin/chromium "
+                                           "(apt-get install chromium chromium-driver)")
+pytestmark = [pytest.mark.browser, NEEDS_CHROMIUM]
 
 
 # --- fixtures ------------------------------------------------------------------

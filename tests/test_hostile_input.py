@@ -22,6 +22,9 @@ import xarray as xr
 
 from workbench.cli import main
 
+# The browser fixtures and marks of the report's browser tests.
+from test_browser import NEEDS_CHROMIUM, PHONE, browser, visit  # noqa: F401
+
 HOSTILE = {
     "script": '<script>alert("owned")</script>',
     "markup": "</td></table><img src=x onerror=alert(1)>",
@@ -274,3 +277,30 @@ def test_model_file_assumption_text_survives_in_the_summary(model_file_run):
     mine = next(a for a in doc["assumptions"] if a["key"] == MODEL_TEXT["key"])
     assert mine["statement"] == MODEL_TEXT["statement"]
     assert any(e["check"].endswith(MODEL_TEXT["stat"]) for e in mine["evidence"]), mine["evidence"]
+
+
+def test_assumption_keys_that_differ_only_in_odd_characters_keep_distinct_anchors():
+    from workbench.report.html import anchor
+
+    keys = ["a<b", "a>b", "a b", "a-b", "a_b", "a&b", "a\"b", HOSTILE["script"], HOSTILE["markup"]]
+    ids = [anchor(k) for k in keys]
+    assert len(set(ids)) == len(keys)
+    assert all(c.isalnum() or c in "-_" for i in ids for c in i)
+    assert anchor("shared_spread") == "a-shared_spread"  # plain keys keep readable ids
+
+
+# --- a hostile report in a real browser ---------------------------------------------------------
+
+
+@pytest.mark.browser
+@NEEDS_CHROMIUM
+def test_hostile_reports_run_no_script_and_do_not_scroll_sideways_on_a_phone(model_file_run, grouped_run,
+                                                                             visit):
+    for folder, shown in ((model_file_run, HOSTILE["script"]), (grouped_run[0], str(grouped_run[1]))):
+        v = visit(folder / "report.html", PHONE)
+        v.page.wait_for_load_state("load")
+        assert v.errors == []  # an alert() from the input would be recorded here
+        assert v.page.evaluate("() => document.scripts.length") == 0
+        assert shown in v.page.inner_text("body")
+        page_width, inner = v.page.evaluate("() => [document.scrollingElement.scrollWidth, innerWidth]")
+        assert page_width <= inner

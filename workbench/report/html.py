@@ -6,6 +6,7 @@ Every user-supplied string passes through Jinja's autoescaping.
 
 from __future__ import annotations
 
+import hashlib
 import html
 from pathlib import Path
 
@@ -58,8 +59,16 @@ def _num(x, digits=3):
 
 
 def anchor(key: str) -> str:
-    """A safe in-page id for an assumption key."""
-    return "a-" + "".join(c if c.isalnum() or c in "-_" else "-" for c in key)
+    """A safe in-page id for an assumption key.
+
+    Characters other than letters, digits, ``-`` and ``_`` become ``-``; a
+    key that needed such a change also gets a short hash of itself, so two
+    keys that differ only there (``a<b``, ``a>b``) keep distinct ids.
+    """
+    safe = "".join(c if c.isalnum() or c in "-_" else "-" for c in key)
+    if safe != key:
+        safe += "-" + hashlib.sha1(key.encode("utf-8")).hexdigest()[:8]
+    return "a-" + safe
 
 
 def _free_names(fit) -> list[str]:
