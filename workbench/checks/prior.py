@@ -78,6 +78,45 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
 
 
 @check
+def posterior_in_prior_tail(context: Context) -> list[Finding]:
+    """Where each free parameter's posterior median falls among its prior draws.
+
+    A median beyond (nearly) every prior draw means the data pulled the
+    parameter to where its prior puts almost no mass: a prior-data conflict
+    that names the parameter.
+    """
+    fit = context.fit
+    if "prior" not in fit.idata.children:
+        return []
+    prior = fit.draws(group="prior")
+    posterior = fit.draws()
+    findings = []
+    for name in free_parameters(fit):
+        if name not in prior:
+            continue
+        draws = prior[name].reshape(prior[name].shape[0], -1)
+        medians = np.median(posterior[name].reshape(posterior[name].shape[0], -1), axis=0)
+        share_below = (draws < medians).mean(axis=0)
+        tail = np.minimum(share_below, 1.0 - share_below)
+        i = int(np.argmin(tail))
+        label = name if draws.shape[1] == 1 else f"{name}[{i}]"
+        findings.append(
+            Finding(
+                assumption=PRIORS,
+                kind="prior_tail",
+                check=f"prior_tail:{label}",
+                value=float(medians[i]),
+                detail=(f"Posterior median of {label} is {medians[i]:.4g}; {share_below[i]:.1%} of "
+                        f"{draws.shape[0]} prior draws lie below it."),
+                numbers={"parameter": label, "share_below": float(share_below[i]),
+                         "prior_draws": int(draws.shape[0]),
+                         "in_model_file": bool(getattr(context.design, "is_model_file", False))},
+            )
+        )
+    return findings
+
+
+@check
 def prior_sensitivity(context: Context) -> list[Finding]:
     """Power-scaling sensitivity of each free parameter to prior and likelihood."""
     import arviz as az

@@ -37,6 +37,30 @@ def coverage(f: Finding) -> Judgement:
     return Judgement(0, "Within the range the priors expect.")
 
 
+# A posterior median outside the central 99% of the prior draws sits where the
+# prior puts almost no mass; beyond every one of at least this many draws it
+# contradicts the prior outright (common practice for prior-data conflict).
+TAIL_DOUBTFUL = 0.01
+TAIL_MIN_DRAWS = 200
+
+
+@rule("prior_tail")
+def posterior_tail(f: Finding) -> Judgement:
+    n = f.numbers
+    name, below = n["parameter"], n["share_below"]
+    tail = min(below, 1.0 - below)
+    side = "above" if below > 0.5 else "below"
+    advice = (MODEL_FILE_ADVICE if n.get("in_model_file") else ADVICE).format(name=name.split("[")[0])
+    if tail == 0.0 and n["prior_draws"] >= TAIL_MIN_DRAWS:
+        return Judgement(2, f"The data put {name} {side} every prior draw: a prior-data conflict "
+                            f"on {name}.", advice, strength=4.0)
+    if tail < TAIL_DOUBTFUL:
+        end = "upper" if side == "above" else "lower"
+        return Judgement(1, f"The data put {name} in the far {end} tail of its prior.", advice,
+                         strength=1.0)
+    return Judgement(0, "Inside the bulk of its prior.")
+
+
 @rule("prior_sensitivity")
 def sensitivity(f: Finding) -> Judgement:
     n = f.numbers
