@@ -5,7 +5,10 @@ probability ``P[i, j]`` (staying is a move to i), independently of the other
 units and of its past (a discrete-time Markov chain). End stages (option
 ``absorbing``) hold their units for good. With ``moves=forward`` a unit can
 stay, move to a later stage in the ``stages`` order, or move to any end stage;
-with ``moves=any`` every move is possible. Each allowed move out of a
+with ``moves=any`` every move is possible; ``moves`` may also list the
+possible moves as ``FROM>TO`` pairs (a move the process cannot make should
+be left out: its probability is zero, which no log-odds prior reaches). Each
+allowed move out of a
 transient stage has a log-odds ``move_logit`` against staying (softmax rows).
 
 Data. The table counts the units of each cohort in each stage at consecutive
@@ -83,11 +86,22 @@ STAGES = Option("stages", "the stage count columns in their order, comma separat
                 parse=_name_list(2))
 ABSORBING = Option("absorbing", "the end stages among 'stages', comma separated (at least one)",
                    parse=_name_list(1))
+def _moves_option(text: str):
+    text = str(text).strip()
+    if text in {"forward", "any"}:
+        return text
+    pairs = tuple(tuple(part.strip() for part in item.split(">")) for item in text.split(",") if item.strip())
+    if not pairs or any(len(pair) != 2 or not all(pair) for pair in pairs):
+        raise ValueError("expected forward, any, or moves written FROM>TO separated by commas")
+    return pairs
+
+
 MOVES = Option(
     "moves",
-    "forward (stay, move to a later stage or to an end stage) or any (every move possible)",
+    "forward (stay, move to a later stage or to an end stage), any (every move possible), or the "
+    "possible moves as FROM>TO pairs separated by commas (staying is always possible)",
+    parse=_moves_option,
     default="forward",
-    choices=("forward", "any"),
 )
 POOLING = Option(
     "pooling",
@@ -100,12 +114,29 @@ POOLING = Option(
 # --- validation ------------------------------------------------------------------------
 
 
-def allowed_moves(stages, absorbing, moves: str) -> np.ndarray:
-    """Boolean matrix (from, to) of the moves the chain allows."""
+def allowed_moves(stages, absorbing, moves) -> np.ndarray:
+    """Boolean matrix (from, to) of the moves the chain allows.
+
+    ``moves`` is ``"forward"``, ``"any"`` or a tuple of (from, to) stage
+    names; staying is always allowed and end stages only hold their units.
+    """
     s = len(stages)
     end = np.array([name in absorbing for name in stages])
-    allowed = np.ones((s, s), dtype=bool) if moves == "any" else (
-        np.triu(np.ones((s, s), dtype=bool)) | end[None, :])
+    if moves == "any":
+        allowed = np.ones((s, s), dtype=bool)
+    elif moves == "forward":
+        allowed = np.triu(np.ones((s, s), dtype=bool)) | end[None, :]
+    else:
+        allowed = np.eye(s, dtype=bool)
+        for source, target in moves:
+            for name in (source, target):
+                if name not in stages:
+                    raise OptionError(f"option 'moves': expected stage names among {', '.join(stages)}; "
+                                      f"found {name!r} in {source}>{target}")
+            if source in absorbing:
+                raise OptionError(f"option 'moves': {source}>{target} leaves the end stage {source!r}; "
+                                  f"expected moves out of transient stages only")
+            allowed[stages.index(source), stages.index(target)] = True
     allowed[end] = np.eye(s, dtype=bool)[end]
     return allowed
 
@@ -574,7 +605,8 @@ def demo(rng: np.random.Generator) -> DemoScenario:
             rows.append({"cohort": f"intake-{intake + 1:02d}", "period": month,
                          "applied": size, "training": 0,
                          "certified": 0, "left": 0})
-    options = {"stages": ",".join(DEMO_STAGES), "absorbing": "certified,left"}
+    options = {"stages": ",".join(DEMO_STAGES), "absorbing": "certified,left",
+               "moves": "applied>training,applied>left,training>certified,training>left"}
     design_options = RECIPE.read_options(options)
     data = validate(pd.DataFrame(rows), design_options)
     simulated = simulate(rng, data, {"transition": np.array(DEMO_TRUTH["transition"])}, design_options)

@@ -90,6 +90,21 @@ def test_every_stage_an_end_stage_is_an_option_error():
         OptionError, small_table(), absorbing=STAGES)
 
 
+def test_a_listed_move_out_of_an_end_stage_is_an_option_error():
+    assert "leaves the end stage 'done'" in one_line_error(OptionError, small_table(), moves="new>active,done>new")
+
+
+def test_a_listed_move_with_an_unknown_stage_is_an_option_error():
+    assert "found 'paused' in new>paused" in one_line_error(OptionError, small_table(), moves="new>paused")
+
+
+def test_listed_moves_are_the_only_moves_besides_staying():
+    _, data = validated(small_table(), moves="new>active,active>done,active>dropped")
+    expected = np.eye(4, dtype=bool)
+    expected[0, 1] = expected[1, 2] = expected[1, 3] = True
+    np.testing.assert_array_equal(data.extra["allowed"], expected)
+
+
 def test_a_fractional_period_is_refused():
     table = small_table()
     table["period"] = table["period"].astype(float)
