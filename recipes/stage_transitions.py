@@ -395,7 +395,8 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
 def _matrices_of(data: Dataset, params: dict) -> np.ndarray:
     n_groups = len(data.labels["group"])
     if "transition_group" in params:
-        return np.asarray(params["transition_group"], dtype=float).reshape(n_groups, *data.extra["allowed"].shape)
+        shape = (n_groups, *data.extra["allowed"].shape)
+        return np.asarray(params["transition_group"], dtype=float).reshape(shape)
     m = np.asarray(params["transition"], dtype=float)
     return np.broadcast_to(m, (n_groups, *m.shape))
 

@@ -91,7 +91,8 @@ def test_every_stage_an_end_stage_is_an_option_error():
 
 
 def test_a_listed_move_out_of_an_end_stage_is_an_option_error():
-    assert "leaves the end stage 'done'" in one_line_error(OptionError, small_table(), moves="new>active,done>new")
+    message = one_line_error(OptionError, small_table(), moves="new>active,done>new")
+    assert "leaves the end stage 'done'" in message
 
 
 def test_a_listed_move_with_an_unknown_stage_is_an_option_error():
