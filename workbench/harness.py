@@ -173,10 +173,31 @@ def run_check(
     say("running checks")
     findings = checks.run_all(context)
     context.extras["computation"] = computation_summary(main.idata)
+    derived = getattr(getattr(design, "recipe", None), "derived", None)
+    if derived is not None:
+        context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))
     declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
     judged = verdicts.decide(declared, findings)
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
                     context.extras, calibration, started, time.perf_counter() - start)
+
+
+# Derived quantities are shown with their central 90% interval.
+DERIVED_INTERVAL = (5, 95)
+
+
+def summarise_draws(draws: dict) -> dict:
+    """Mean and central interval of each derived quantity (element by element)."""
+    import numpy as np
+
+    out = {}
+    for name, values in draws.items():
+        values = np.asarray(values, dtype=float).reshape(len(values), -1)
+        for i in range(values.shape[1]):
+            label = name if values.shape[1] == 1 else f"{name}[{i}]"
+            low, high = np.percentile(values[:, i], DERIVED_INTERVAL)
+            out[label] = {"mean": float(values[:, i].mean()), "low": float(low), "high": float(high)}
+    return out
 
 
 def command_line() -> str:
