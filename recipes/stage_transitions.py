@@ -639,9 +639,10 @@ RECIPE = Recipe(
     ),
     options=(STAGES, ABSORBING, MOVES, POOLING, CENTRED),
     parameters=(
-        # Log-odds against staying: sd 1.5 lets a move be from rare (5%) to
-        # dominant (95%) relative to staying, without favouring either.
-        Parameter("move_logit", "log-odds of each allowed move against staying", "normal(0,1.5)"),
+        # Log-odds against staying, centred at -1.5: a period is usually
+        # shorter than a stay in a stage (each move about a fifth as likely
+        # as staying), while sd 1.5 still lets a move dominate (common practice).
+        Parameter("move_logit", "log-odds of each allowed move against staying", "normal(-1.5,1.5)"),
         Parameter("transition_sd", "sd of move log-odds across groups (partial pooling)",
                   "halfnormal(0.5)"),
         # Relaxation parameters (only present in the expanded models).
