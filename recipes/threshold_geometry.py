@@ -13,8 +13,8 @@ group-level designs.
 
 References
 ----------
-Gelman, A. and Nolan, D. (2002). A probability model for golf putting.
-Teaching Statistics 24(3), 93-95 (the geometric success model).
+Gelman, A. and Nolan, D. (2002). Teaching Statistics 24(3), 93-95: the
+geometric success model this recipe implements.
 """
 
 from __future__ import annotations
