@@ -36,6 +36,7 @@ from workbench.recipe import (
     Recipe,
     Relaxation,
     Statistic,
+    flag,
 )
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend
 
@@ -53,15 +54,6 @@ def _positive_float(text: str) -> float:
     return value
 
 
-def _flag(text: str) -> bool:
-    low = str(text).strip().lower()
-    if low in {"true", "yes", "1"}:
-        return True
-    if low in {"false", "no", "0"}:
-        return False
-    raise ValueError("must be true or false")
-
-
 POOLING = Option(
     "pooling",
     "how groups share the spread: none, partial or complete",
@@ -71,7 +63,7 @@ POOLING = Option(
 CENTRED = Option(
     "centred",
     "true for the centred form of partial pooling (default false: non-centred)",
-    parse=_flag,
+    parse=flag,
     default=False,
 )
 

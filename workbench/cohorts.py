@@ -36,7 +36,8 @@ import pandas as pd
 
 from workbench import curves, tables
 from workbench.errors import DataError
-from workbench.recipe import Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic
+from workbench.recipe import (Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic,
+                              flag)
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend, standardised
 
 # Keeps every cell probability strictly inside (0, 1) so the likelihood never
@@ -46,16 +47,6 @@ EPS = 1e-9
 # likelihood is evaluated over every cell at every gradient step. Common
 # practice for interactive sampling on a laptop, not a published figure.
 MAX_CELLS = 200_000
-
-
-def flag(text: str) -> bool:
-    """Parse true/false text (``--set centred=true``)."""
-    low = str(text).strip().lower()
-    if low in {"true", "yes", "1"}:
-        return True
-    if low in {"false", "no", "0"}:
-        return False
-    raise ValueError("must be true or false")
 
 
 FAMILY = Option(

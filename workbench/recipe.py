@@ -35,6 +35,16 @@ class Column:
     required: bool = True
 
 
+def flag(text: str) -> bool:
+    """Parse an on/off option value (``--set centred=true``)."""
+    low = str(text).strip().lower()
+    if low in {"true", "yes", "1"}:
+        return True
+    if low in {"false", "no", "0"}:
+        return False
+    raise ValueError("must be true or false")
+
+
 @dataclass(frozen=True)
 class Option:
     """A design option set with ``--set NAME=VALUE``.
