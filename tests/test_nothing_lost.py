@@ -94,7 +94,8 @@ class Watched:
     """A ``workbench check`` process with its stderr lines timestamped."""
 
     def __init__(self, args: list[str], cwd: Path, env: dict | None = None, preload: str = ""):
-        code = f"{preload}import sys; from workbench.cli import main; sys.exit(main(sys.argv[1:]))"
+        # The installed command's own entry point.
+        code = f"{preload}from workbench.cli import run; run()"
         self.start = time.monotonic()
         self.proc = subprocess.Popen([sys.executable, "-c", code, *args], cwd=cwd, env=env,
                                      stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)

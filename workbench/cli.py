@@ -13,6 +13,7 @@ import importlib
 import pkgutil
 import sys
 
+from workbench import interrupts
 from workbench.errors import OptionError, WorkbenchError
 
 PROG = "workbench"
@@ -46,7 +47,11 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def main(argv: list[str] | None = None) -> int:
+def main(argv: list[str] | None = None, last: bool = False) -> int:
+    """Run one command; returns the exit status.
+
+    ``last`` means the process exits right after (the installed command).
+    """
     argv = sys.argv[1:] if argv is None else argv
     try:
         parser = build_parser()
@@ -54,7 +59,10 @@ def main(argv: list[str] | None = None) -> int:
         if args.command is None:
             parser.print_help()
             return 2
-        return commands()[args.command].run(args)
+        with interrupts.watched(last):
+            code = commands()[args.command].run(args)
+            interrupts.raise_if_interrupted()
+        return code
     except WorkbenchError as err:
         print(f"{PROG}: error: {err}", file=sys.stderr)
         return err.exit_code
@@ -63,5 +71,10 @@ def main(argv: list[str] | None = None) -> int:
         return 130
 
 
+def run() -> None:
+    """The installed ``workbench`` command."""
+    sys.exit(main(last=True))
+
+
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    run()

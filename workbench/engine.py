@@ -22,6 +22,7 @@ import numpy as np
 import xarray as xr
 
 from workbench.errors import WorkbenchError
+from workbench.interrupts import interrupts_kept
 
 
 @dataclass(frozen=True)
@@ -51,7 +52,7 @@ class Sampler:
         import nutpie
 
         self.model = model
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), interrupts_kept():
             warnings.simplefilter("ignore")
             self.compiled = nutpie.compile_pymc_model(model)
         # shared_data is keyed by opaque ids; the container names sit on the variables.
@@ -71,6 +72,10 @@ class Sampler:
         ``progress`` shows nutpie's bar on a terminal and plain ``label:``
         lines with counts and time left elsewhere (logs, CI).
         """
+        with interrupts_kept():
+            return self._run(seed, settings, observed, progress, label)
+
+    def _run(self, seed, settings, observed, progress, label) -> xr.DataTree:
         import nutpie
 
         compiled = self.compiled
@@ -84,7 +89,9 @@ class Sampler:
         terminal = sys.stderr.isatty()
         lines = _SamplingLines(settings, label) if progress and not terminal else None
         try:
-            trace = nutpie.sample(
+            # Not blocking: nutpie's own wait turns Ctrl-C into a partial trace,
+            # which would let an interrupted run go on and write its files.
+            background = nutpie.sample(
                 compiled,
                 draws=settings.draws,
                 tune=settings.tune,
@@ -94,7 +101,13 @@ class Sampler:
                 progress_bar=progress and terminal,
                 progress_callback=lines,
                 save_warmup=False,
+                blocking=False,
             )
+            try:
+                trace = background.wait()
+            except BaseException:
+                background.cancel()
+                raise
         finally:
             if lines is not None:
                 lines.bar.close()

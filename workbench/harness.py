@@ -18,7 +18,7 @@ from importlib import metadata
 from multiprocessing import get_context
 from typing import Any, Callable
 
-from workbench import checks, engine, verdicts
+from workbench import checks, engine, interrupts, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -170,6 +170,7 @@ def run_check(
                               fitter, progress) if relax else {}
     calibration = calibrate() if calibrate else None
     context = checks.Context(design, data, main, relaxed, calibration)
+    interrupts.raise_if_interrupted()
     say("running checks")
     findings = checks.run_all(context)
     context.extras["computation"] = computation_summary(main.idata)

@@ -17,8 +17,20 @@ from pathlib import Path
 from typing import Any
 
 from workbench.errors import OutputError
+from workbench.interrupts import raise_if_interrupted
 
 SCHEMA = "workbench.summary/1"
+
+
+def _file_mode() -> int:
+    """The mode a plain ``open`` would give a new file under this process's umask."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+# Temporary files are created private (0600); the finished file gets the usual mode.
+FILE_MODE = _file_mode()
 
 
 # --- files -------------------------------------------------------------------
@@ -26,14 +38,17 @@ SCHEMA = "workbench.summary/1"
 
 def atomic_write(path: str | Path, data: bytes | str) -> Path:
     """Write ``data`` to ``path`` through a temporary file and a rename."""
+    raise_if_interrupted()
     path = Path(path)
     raw = data.encode("utf-8") if isinstance(data, str) else data
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as handle:
+            os.fchmod(handle.fileno(), FILE_MODE)
             handle.write(raw)
             handle.flush()
             os.fsync(handle.fileno())
+        raise_if_interrupted()
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
@@ -43,11 +58,14 @@ def atomic_write(path: str | Path, data: bytes | str) -> Path:
 
 def atomic_write_with(path: str | Path, write) -> Path:
     """Let ``write(temp_path)`` produce the file, then rename it into place."""
+    raise_if_interrupted()
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
     try:
         write(tmp)
+        os.chmod(tmp, FILE_MODE)
+        raise_if_interrupted()
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
