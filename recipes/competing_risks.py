@@ -243,6 +243,8 @@ RECIPE = Recipe(
             relaxation=cohorts.relaxation(
                 build_model, "unresolved", "a share of units may never end",
                 null=0.0, negligible=0.01, applies=_resolve_is_all,
+                # Planted: a tenth of units never end, fitted as if all do.
+                planted=0.1, planted_options={"resolve": "all"},
             ),
             advice="Some units may never end: use --set resolve=estimate, or look for an outcome "
                    "that the table does not count.",

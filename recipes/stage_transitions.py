@@ -664,7 +664,8 @@ RECIPE = Recipe(
             ),
             relaxation=relaxation(build_model, "dormant",
                                   "transient units may fall silent in their stage for good",
-                                  null=0.0, negligible=0.01),
+                                  # Planted: 5% of active units a period fall silent.
+                                  null=0.0, negligible=0.01, planted=0.05),
             advice="Units stop moving without reaching an end stage: add the missing exit as an end "
                    "stage (e.g. 'inactive') or record when units are lost to follow-up.",
         ),
@@ -674,7 +675,8 @@ RECIPE = Recipe(
             statistic=Statistic("period_trend", "slope of transient-stage residuals on period",
                                 period_trend),
             relaxation=relaxation(build_model, "stay_drift", "the stay probabilities may drift with period",
-                                  null=0.0, negligible=0.05),
+                                  # Planted: stays lengthen by half from one sd of period to the next.
+                                  null=0.0, negligible=0.05, planted=0.4),
             advice="The chain changes over time: split the table into eras (a group column) or "
                    "let the probabilities depend on period.",
         ),
@@ -686,7 +688,8 @@ RECIPE = Recipe(
                                 dispersion, sides="greater"),
             relaxation=relaxation(build_model, "overdispersion",
                                   "units of a cohort move together (Dirichlet-multinomial)",
-                                  null=0.0, negligible=0.005),
+                                  # Planted: a stage of 50 units varies about twice as much as multinomial.
+                                  null=0.0, negligible=0.005, planted=0.02),
             advice="Counts vary more than multinomial: units move in batches; model a cohort-period "
                    "effect or use the overdispersed likelihood.",
         ),

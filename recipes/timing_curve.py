@@ -205,6 +205,8 @@ RECIPE = Recipe(
             relaxation=cohorts.relaxation(
                 build_model, "never", "a share of units may never have the event",
                 null=0.0, negligible=0.01, applies=_eventual_is_all,
+                # Planted: a fifth of units never have the event, fitted as if all do.
+                planted=0.2, planted_options={"eventual": "all"},
             ),
             advice="Let a share of units never have the event (--set eventual=estimate), or follow "
                    "the oldest cohorts longer before trusting the plateau.",

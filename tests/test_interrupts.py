@@ -71,3 +71,44 @@ def test_written_files_get_the_mode_a_plain_open_would_give(tmp_path):
     for path in (writers.atomic_write(tmp_path / "a.json", "{}"),
                  writers.atomic_write_with(tmp_path / "b.nc", lambda p: open(p, "w").close())):
         assert stat.S_IMODE(path.stat().st_mode) == stat.S_IMODE(plain.stat().st_mode)
+
+
+def test_an_error_raised_because_of_ctrl_c_ends_the_command_as_interrupted(monkeypatch, capsys):
+    from workbench import cli
+
+    class Failing:
+        NAME = "recipes"
+
+        @staticmethod
+        def run(args):
+            try:
+                os.kill(os.getpid(), signal.SIGINT)
+            except KeyboardInterrupt as err:  # compiled code reports the interrupt as its own error
+                raise SystemError("returned a result with an exception set") from err
+
+    monkeypatch.setattr(cli, "commands", lambda: {"recipes": Failing})
+    monkeypatch.setattr(cli, "build_parser", lambda: _parser_for("recipes"))
+    assert cli.main(["recipes"]) == 130
+    assert capsys.readouterr().err.strip() == "workbench: interrupted; finished files are kept"
+
+
+def test_an_error_without_ctrl_c_is_not_taken_for_an_interrupt(monkeypatch):
+    from workbench import cli
+
+    class Failing:
+        @staticmethod
+        def run(args):
+            raise SystemError("a real bug")
+
+    monkeypatch.setattr(cli, "commands", lambda: {"recipes": Failing})
+    monkeypatch.setattr(cli, "build_parser", lambda: _parser_for("recipes"))
+    with pytest.raises(SystemError):
+        cli.main(["recipes"])
+
+
+def _parser_for(name):
+    import argparse
+
+    parser = argparse.ArgumentParser()
+    parser.add_argument("command")
+    return parser

@@ -67,8 +67,17 @@ def main(argv: list[str] | None = None, last: bool = False) -> int:
         print(f"{PROG}: error: {err}", file=sys.stderr)
         return err.exit_code
     except KeyboardInterrupt:
-        print(f"{PROG}: interrupted; finished files are kept", file=sys.stderr)
-        return 130
+        return _interrupted()
+    except Exception:
+        # Compiled code that met the interrupt may fail with an error of its own.
+        if interrupts.interrupted():
+            return _interrupted()
+        raise
+
+
+def _interrupted() -> int:
+    print(f"{PROG}: interrupted; finished files are kept", file=sys.stderr)
+    return 130
 
 
 def run() -> None:

@@ -591,10 +591,12 @@ RELAXATION_PARAMETERS = (
 )
 
 
-def relaxation(build_model, parameter, meaning, null, negligible, applies=None) -> Relaxation:
+def relaxation(build_model, parameter, meaning, null, negligible, applies=None, planted=None,
+               planted_options=None) -> Relaxation:
     """The expansion of ``build_model`` by one relaxation parameter."""
     return Relaxation(parameter=parameter, meaning=meaning, build=partial(build_model, relax=parameter),
-                      null=null, negligible=negligible, applies=applies)
+                      null=null, negligible=negligible, applies=applies, planted=planted,
+                      planted_options=planted_options)
 
 
 def shared_assumptions(build_model) -> tuple[Assumption, ...]:
@@ -611,7 +613,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             relaxation=relaxation(
                 build_model, "curve_power",
                 "the curve may be the family raised to a power (exponentiated family)",
-                null=0.0, negligible=0.1,
+                # Planted: F ** 2, a curve that rises late and steep for its family.
+                null=0.0, negligible=0.1, planted=0.7,
             ),
             advice="Try another family (--set family=...) or a curve with one more shape parameter; "
                    "look at where the residuals bend.",
@@ -627,7 +630,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             relaxation=relaxation(
                 build_model, "cohort_sd", "each cohort's timing scale may differ (log-normal cohort effect)",
-                null=0.0, negligible=0.05,
+                # Planted: cohorts' timing scales differ by about +-30%.
+                null=0.0, negligible=0.05, planted=0.3,
             ),
             advice="Cohorts differ in timing: add a group column for what distinguishes them, or a "
                    "cohort effect on the timing scale.",
@@ -644,7 +648,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             relaxation=relaxation(
                 build_model, "overdispersion",
                 "units of a cohort share a common influence (Dirichlet-multinomial)",
-                null=0.0, negligible=0.005,
+                # Planted: a cohort of 100 varies about 3 times as much as multinomial.
+                null=0.0, negligible=0.005, planted=0.02,
             ),
             advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
                    "site, a day); model it as an effect or use the overdispersed likelihood.",

@@ -5,7 +5,9 @@ compiled functions) may catch a ``KeyboardInterrupt`` and carry on, so a
 command could finish and overwrite its files after the user pressed Ctrl-C.
 The command line therefore notes every SIGINT in a flag that stays set;
 the engine and the writers ask :func:`raise_if_interrupted` before going on,
-so once interrupted no further output file is written.
+so once interrupted no further output file is written. An error that the
+interrupt caused inside compiled code (numba reports it as a ``SystemError``)
+is reported as the interrupt it was.
 """
 
 from __future__ import annotations
@@ -39,6 +41,11 @@ def watched(last: bool = False):
         yield
     finally:
         signal.signal(signal.SIGINT, signal.SIG_IGN if last else previous)
+
+
+def interrupted() -> bool:
+    """Whether a SIGINT arrived inside the current :func:`watched` block."""
+    return _interrupted.is_set()
 
 
 def raise_if_interrupted() -> None:

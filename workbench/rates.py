@@ -39,31 +39,40 @@ class Tally:
         }
 
 
-def scenarios(recipe) -> dict[str, dict]:
-    """Planted parameter values per scenario: clean plus one per relaxable assumption."""
-    out = {CLEAN: {}}
+@dataclass(frozen=True)
+class Planted:
+    """What one scenario plants: parameter values, and options the design is fitted under."""
+
+    params: dict = field(default_factory=dict)
+    options: dict = field(default_factory=dict)
+
+
+def scenarios(recipe) -> dict[str, Planted]:
+    """The clean scenario plus one planted fault per relaxable assumption."""
+    out = {CLEAN: Planted()}
     for assumption in recipe.assumptions:
         relaxation = assumption.relaxation
         if relaxation is not None and relaxation.planted is not None and assumption.key not in out:
-            out[assumption.key] = {relaxation.parameter: relaxation.planted}
+            out[assumption.key] = Planted({relaxation.parameter: relaxation.planted},
+                                          dict(relaxation.planted_options or {}))
     return out
 
 
-def _truth_layout(recipe, seed: int):
+def _truth_layout(recipe, seed: int, options: dict):
     demo = recipe.demo(np.random.default_rng([seed, 0]))
-    design = make_design(recipe, demo.options, {})
+    design = make_design(recipe, {**demo.options, **options}, {})
     base = design.validate(demo.table)
     return design, base, demo.truth
 
 
-def run_scenario(recipe, scenario: str, planted: dict, seeds, settings: engine.Settings,
+def run_scenario(recipe, scenario: str, planted: Planted, seeds, settings: engine.Settings,
                  say=lambda _: None) -> Tally:
     """Check one scenario over ``seeds``; relaxations run in-process to reuse compiled models."""
     tally = Tally(scenario)
-    design, base, truth = _truth_layout(recipe, 0)
+    design, base, truth = _truth_layout(recipe, 0, planted.options)
     for seed in seeds:
         rng = np.random.default_rng([seed, 1])
-        data = design.simulate(rng, base, {**truth, **planted})
+        data = design.simulate(rng, base, {**truth, **planted.params})
         info = harness.DataInfo(f"simulated:{recipe.name}:{scenario}:{seed}", "", data.rows)
         try:
             run = harness.run_check(design, data, info, seed=seed, settings=settings, workers=1)

@@ -118,7 +118,10 @@ class Relaxation:
     ``negligible`` is the distance from the null below which the expansion
     makes no practical difference; the verdict asks how much posterior mass
     lies beyond it. ``planted`` is a realistic violation strength: the value
-    benchmarks and tests give the parameter when they plant this fault.
+    benchmarks and tests give the parameter when they plant this fault;
+    ``planted_options`` are the design options under which the fault can
+    be planted at all (e.g. ``eventual=all``: an estimated eventual share
+    already absorbs units that never have the event).
     """
 
     parameter: str
@@ -130,6 +133,7 @@ class Relaxation:
     # assumption (e.g. an estimated eventual share); None means always.
     applies: Callable[[Mapping[str, Any]], bool] | None = None
     planted: float | None = None
+    planted_options: Mapping[str, str] | None = None
 
     def applies_to(self, options: Mapping[str, Any]) -> bool:
         """Whether this expansion means anything under the given options."""
