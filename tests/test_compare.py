@@ -10,7 +10,7 @@ import pytest
 
 import shared_runs
 from workbench import plans
-from workbench.compare import SE_MULTIPLE, statement
+from workbench.compare import SE_MULTIPLE, statement, too_close_to_call
 from workbench.errors import OptionError
 
 
@@ -154,7 +154,7 @@ def rows(*diffs_and_se):
             "bad_pareto_k": []}]
     for i, (diff, se) in enumerate(diffs_and_se, start=1):
         out.append({"design": "BCD"[i - 1], "rank": i, "elpd_diff": diff, "dse": se, "weight": 0.4 / len(diffs_and_se),
-                    "within": abs(diff) <= SE_MULTIPLE * se, "bad_pareto_k": []})
+                    "within": too_close_to_call(diff, se), "bad_pareto_k": []})
     return out
 
 
@@ -168,6 +168,19 @@ def test_difference_within_two_standard_errors_names_no_winner():
 def test_difference_beyond_two_standard_errors_names_the_winner():
     text, winner = statement(rows((-9.0, 3.0)))
     assert winner == "A" and "A predicts best" in text
+
+
+def test_identical_designs_with_a_rounding_difference_name_no_winner():
+    # Two copies of one model: a difference of 1e-12 with an SE of 1e-13 is no evidence.
+    assert too_close_to_call(-1e-12, 1e-13)
+    text, winner = statement(rows((-1e-12, 1e-13)))
+    assert winner is None and text.startswith("No clear winner")
+
+
+def test_a_small_difference_with_a_small_se_is_still_too_close_to_call():
+    # Sivula et al. (2022): below about 4 elpd the normal approximation is poor.
+    assert too_close_to_call(-3.0, 0.5)
+    assert not too_close_to_call(-9.0, 3.0)
 
 
 def test_one_close_and_one_far_design_keep_the_top_open():

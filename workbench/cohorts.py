@@ -613,8 +613,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             relaxation=relaxation(
                 build_model, "curve_power",
                 "the curve may be the family raised to a power (exponentiated family)",
-                # Planted: F ** 2, a curve that rises late and steep for its family.
-                null=0.0, negligible=0.1, planted=0.7,
+                # Planted: F ** 3, a curve that starts late and rises steeply for its family.
+                null=0.0, negligible=0.1, planted=1.1,
             ),
             advice="Try another family (--set family=...) or a curve with one more shape parameter; "
                    "look at where the residuals bend.",

@@ -283,11 +283,21 @@ def comparison_rows(elpds: dict) -> list[dict]:
             "dse": dse,
             "p_loo": float(r["p"]),
             "weight": float(r["weight"]),
-            "within": bool(int(r["rank"]) == 0 or abs(diff) <= SE_MULTIPLE * dse),
+            "within": int(r["rank"]) == 0 or too_close_to_call(diff, dse),
             "bad_pareto_k": [int(i) for i in np.flatnonzero(k > PARETO_K_LIMIT)],
             "diagnosis": " ".join(str(r.get(c) or "") for c in ("diag_diff", "diag_elpd")).strip(),
         })
     return rows
+
+
+def too_close_to_call(elpd_diff: float, dse: float) -> bool:
+    """Whether a design's elpd difference to the best leaves the top open.
+
+    Open when the difference is within :data:`SE_MULTIPLE` standard errors,
+    or below :data:`SMALL_DIFFERENCE` whatever its standard error (two
+    near-identical designs have a tiny difference with a tinier SE).
+    """
+    return abs(elpd_diff) <= SE_MULTIPLE * dse or abs(elpd_diff) < SMALL_DIFFERENCE
 
 
 def statement(rows: list[dict]) -> tuple[str, str | None]:
@@ -314,7 +324,7 @@ def statement(rows: list[dict]) -> tuple[str, str | None]:
         names = ", ".join(r["design"] for r in close)
         text = (f"No clear winner: {best['design']} and {names} predict about equally well "
                 f"(elpd differences {', '.join(diff(r) for r in close)} are within "
-                f"{SE_MULTIPLE:g} standard errors)")
+                f"{SE_MULTIPLE:g} standard errors or below {SMALL_DIFFERENCE:g})")
         if far:
             text += "; " + ", ".join(f"{r['design']} predicts worse by {diff(r)}" for r in far)
         text += "."

@@ -77,6 +77,23 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
     return findings
 
 
+def _prior_tails(prior: dict, posterior: dict, names: list[str]):
+    """Per parameter: (label, posterior median, share of prior draws below it, prior draws).
+
+    For a vector parameter, the element whose median sits furthest in a tail.
+    """
+    for name in names:
+        if name not in prior or name not in posterior:
+            continue
+        draws = prior[name].reshape(prior[name].shape[0], -1)
+        medians = np.median(posterior[name].reshape(posterior[name].shape[0], -1), axis=0)
+        share_below = (draws < medians).mean(axis=0)
+        tail = np.minimum(share_below, 1.0 - share_below)
+        i = int(np.argmin(tail))
+        label = name if draws.shape[1] == 1 else f"{name}[{i}]"
+        yield label, float(medians[i]), float(share_below[i]), int(draws.shape[0])
+
+
 @check
 def posterior_in_prior_tail(context: Context) -> list[Finding]:
     """Where each free parameter's posterior median falls among its prior draws.
@@ -88,29 +105,54 @@ def posterior_in_prior_tail(context: Context) -> list[Finding]:
     fit = context.fit
     if "prior" not in fit.idata.children:
         return []
-    prior = fit.draws(group="prior")
-    posterior = fit.draws()
     findings = []
-    for name in free_parameters(fit):
-        if name not in prior:
-            continue
-        draws = prior[name].reshape(prior[name].shape[0], -1)
-        medians = np.median(posterior[name].reshape(posterior[name].shape[0], -1), axis=0)
-        share_below = (draws < medians).mean(axis=0)
-        tail = np.minimum(share_below, 1.0 - share_below)
-        i = int(np.argmin(tail))
-        label = name if draws.shape[1] == 1 else f"{name}[{i}]"
+    for label, median, share_below, n in _prior_tails(fit.draws(group="prior"), fit.draws(),
+                                                      free_parameters(fit)):
         findings.append(
             Finding(
                 assumption=PRIORS,
                 kind="prior_tail",
                 check=f"prior_tail:{label}",
-                value=float(medians[i]),
-                detail=(f"Posterior median of {label} is {medians[i]:.4g}; {share_below[i]:.1%} of "
-                        f"{draws.shape[0]} prior draws lie below it."),
-                numbers={"parameter": label, "share_below": float(share_below[i]),
-                         "prior_draws": int(draws.shape[0]),
+                value=median,
+                detail=(f"Posterior median of {label} is {median:.4g}; {share_below:.1%} of "
+                        f"{n} prior draws lie below it."),
+                numbers={"parameter": label, "share_below": share_below, "prior_draws": n,
                          "in_model_file": bool(getattr(context.design, "is_model_file", False))},
+            )
+        )
+    return findings
+
+
+@check
+def prior_tail_under_relaxations(context: Context) -> list[Finding]:
+    """The prior-tail check re-scored under each relaxed model.
+
+    A misfit can drag a parameter beyond its prior (units stuck in a stage
+    make staying look nearly certain); when the relaxed model of the failing
+    assumption puts it back inside its prior, the verdict step calls the
+    conflict a symptom of that failure.
+    """
+    fit = context.fit
+    if "prior" not in fit.idata.children:
+        return []
+    prior, names = fit.draws(group="prior"), free_parameters(fit)
+    findings = []
+    for assumption in context.design.assumptions:
+        relaxation = assumption.relaxation
+        if relaxation is None or relaxation.parameter not in context.relaxed:
+            continue
+        tails = list(_prior_tails(prior, context.relaxed[relaxation.parameter].draws(), names))
+        beyond = [label for label, _, below, _ in tails if min(below, 1.0 - below) == 0.0]
+        findings.append(
+            Finding(
+                assumption=PRIORS,
+                kind="prior_tail_under_relaxation",
+                check=f"prior_tail|{relaxation.parameter}",
+                value=float(len(beyond)),
+                detail=(f"With {assumption.key} relaxed ({relaxation.parameter}), "
+                        + (f"the data put {', '.join(beyond)} beyond every prior draw."
+                           if beyond else "every posterior median lies among the prior draws.")),
+                numbers={"relaxation_of": assumption.key, "beyond_prior": beyond},
             )
         )
     return findings

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import math
 
-from workbench.findings import COMPUTATION, Finding
+from workbench.findings import COMPUTATION, PRIORS, Finding
 from workbench.verdicts import BROKEN, DOUBTFUL, Judgement, Verdict, rule, settle
 
 # Posterior predictive p-values are conservative (concentrated near 0.5 when
@@ -75,6 +75,12 @@ def sampling_under_relaxation(f: Finding) -> Judgement:
     return Judgement(0, "")
 
 
+@rule("prior_tail_under_relaxation")
+def prior_tail_under_relaxation(f: Finding) -> Judgement:
+    # Read by the side-effect pass below; on its own it argues for nothing.
+    return Judgement(0, "")
+
+
 def _relaxation_gain(verdict: Verdict) -> float | None:
     gains = [f.numbers["elpd_diff"] for f, _ in verdict.evidence if f.kind == "relaxation"]
     return max(gains) if gains else None
@@ -90,7 +96,8 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
     statistic looks ordinary under the cause's relaxed model. Broken
     ``computation`` is a symptom when the cause's relaxed model samples
     cleanly. A symptom becomes doubtful with advice to revisit it after
-    fixing the cause.
+    fixing the cause. So does a broken ``priors`` whose only conflict is a
+    posterior beyond its prior draws that the cause's relaxed model removes.
     """
     broken = [v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None]
     if not broken:
@@ -113,6 +120,17 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
         if relaxed and relaxed[0]["max_rhat"] <= RELAXED_RHAT_OK and relaxed[0]["divergences"] == 0:
             _demote(v, cause, "the sampler explores the relaxed model cleanly, so its trouble here "
                               "comes from the misfit, not from the parameterisation")
+    for v in verdicts:
+        if v.key != PRIORS or v.verdict != BROKEN:
+            continue
+        # Only a conflict of posterior against prior draws is re-scored under relaxation.
+        if any(j.level == 2 and f.kind != "prior_tail" for f, j in v.evidence):
+            continue
+        relaxed = [f.numbers for f, _ in v.evidence
+                   if f.kind == "prior_tail_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
+        if relaxed and not relaxed[0]["beyond_prior"]:
+            _demote(v, cause, "under its relaxed model every parameter lies among its prior draws "
+                              "again, so the conflict comes from the misfit, not from the priors")
 
 
 def _demote(verdict: Verdict, cause: Verdict, why: str) -> None:

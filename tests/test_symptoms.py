@@ -1,0 +1,72 @@
+"""The verdict step names the cause and calls the alarms it explains symptoms.
+
+Synthetic findings, no fits: each test builds the evidence a run would have
+and checks the verdicts after the settle pass (workbench.rules.model_fit).
+"""
+
+from __future__ import annotations
+
+from workbench import verdicts
+from workbench.findings import PRIORS, Finding
+
+DECLARED = [("no_missing_exit", "Every way a unit leaves is a modelled stage.", "Add the exit."),
+            ("time_homogeneity", "Transition probabilities do not drift.", "Split into eras.")]
+
+
+def relaxation(key, parameter, gain):
+    return Finding(key, "relaxation", f"relaxation:{parameter}", 0.1, None, "expanded",
+                   {"parameter": parameter, "null": 0.0, "negligible": 0.01, "share_beyond": 1.0,
+                    "interval": [0.05, 0.2], "elpd_diff": gain, "elpd_se": 2.0})
+
+
+def prior_tail(label, share_below):
+    return Finding(PRIORS, "prior_tail", f"prior_tail:{label}", -8.0, None, "median",
+                   {"parameter": label, "share_below": share_below, "prior_draws": 500})
+
+
+def tail_under(cause, beyond):
+    return Finding(PRIORS, "prior_tail_under_relaxation", "prior_tail|dormant", float(len(beyond)), None,
+                   "relaxed", {"relaxation_of": cause, "beyond_prior": beyond})
+
+
+def by_key(findings):
+    return {v.key: v for v in verdicts.decide(DECLARED, findings)}
+
+
+def test_a_prior_conflict_that_the_cause_relaxation_removes_is_a_symptom():
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), prior_tail("move_logit[1]", 0.0),
+                     tail_under("no_missing_exit", [])])
+    assert judged["no_missing_exit"].verdict == "broken"
+    assert judged[PRIORS].verdict == "doubtful"
+    assert judged[PRIORS].advice.startswith("Revisit after addressing 'no_missing_exit'")
+
+
+def test_a_prior_conflict_that_remains_under_the_relaxation_stays_broken():
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), prior_tail("move_logit[1]", 0.0),
+                     tail_under("no_missing_exit", ["move_logit[1]"])])
+    assert judged[PRIORS].verdict == "broken"
+    assert "move_logit" in judged[PRIORS].advice
+
+
+def test_a_prior_conflict_without_a_broken_relaxation_stays_broken():
+    weak = relaxation("no_missing_exit", "dormant", 0.5)
+    weak.numbers["share_beyond"] = 0.1
+    judged = by_key([weak, prior_tail("move_logit[1]", 0.0), tail_under("no_missing_exit", [])])
+    assert judged[PRIORS].verdict == "broken"
+
+
+def test_prior_predictive_coverage_failure_is_not_explained_away():
+    coverage = Finding(PRIORS, "prior_coverage", "prior_coverage:y:mean", 40.0, 0.0001, "observed mean",
+                       {"share_below": 1.0, "low": 0.0, "high": 10.0})
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), coverage, prior_tail("move_logit[1]", 0.0),
+                     tail_under("no_missing_exit", [])])
+    assert judged[PRIORS].verdict == "broken"
+
+
+def test_the_assumption_whose_relaxation_gains_most_is_the_cause_and_comes_first():
+    ppc_under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 0.0, 0.4,
+                        "under", {"relaxation_of": "no_missing_exit"})
+    judged = verdicts.decide(DECLARED, [relaxation("no_missing_exit", "dormant", 40.0),
+                                        relaxation("time_homogeneity", "stay_drift", 12.0), ppc_under])
+    assert [v.key for v in judged][:1] == ["no_missing_exit"]
+    assert {v.key: v.verdict for v in judged}["time_homogeneity"] == "doubtful"
