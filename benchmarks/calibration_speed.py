@@ -5,8 +5,11 @@ Runs, in one process, the same calibration of threshold-geometry two ways:
 * naive: per replicate, draw parameters from the prior, simulate, build the
   PyMC model for the simulated data and call ``pm.sample`` (PyMC's default
   sampler), then rank the truth among thinned draws;
-* ``run_calibration``: the model compiled once per worker process, the data
-  swapped per replicate, replicates spread over the machine's cores.
+* ``run_calibration``: the model compiled once, the data swapped per
+  replicate; by default this process starts alone and adds helper processes
+  only when the work left pays for their start-up. For comparison it also
+  times a fixed pool of worker processes (``--pool``), each of which imports
+  and compiles before its first replicate.
 
 Both use the same draws, tuning steps, chains and L. Prints seconds per
 replicate for each, their ratio, and replicates per second over a larger
@@ -72,7 +75,10 @@ def main() -> None:
                         help="replicates of the naive loop (default: --sims)")
     parser.add_argument("--large", type=int, default=1000,
                         help="replicates of the throughput run (0 skips it)")
-    parser.add_argument("--workers", type=int, default=None, help="default: the machine's cores")
+    parser.add_argument("--workers", type=int, default=None,
+                        help="default: the default executor (this process first, helpers when they pay)")
+    parser.add_argument("--pool", type=int, default=2,
+                        help="also time this many worker processes side by side (0 skips it)")
     parser.add_argument("--seed", type=int, default=1)
     args = parser.parse_args()
     warnings.simplefilter("ignore")
@@ -94,23 +100,28 @@ def main() -> None:
     result = run_calibration(design, data, args.sims, args.seed, workers=args.workers, quiet=True)
     small = time.perf_counter() - start
     fast = small / args.sims
-    print(f"run_calibration (compile once, {args.workers or cores} workers): {fast:.3f} s per "
-          f"replicate over {args.sims}, start-up included ({len(result.failures)} failed)")
+    how = f"{args.workers} workers" if args.workers else "default executor"
+    print(f"run_calibration ({how}, compiling included): {fast:.3f} s per replicate over "
+          f"{args.sims} ({len(result.failures)} failed)")
     print(f"ratio naive / run_calibration: {naive / fast:.1f}")
 
+    if args.pool:
+        start = time.perf_counter()
+        pooled = run_calibration(design, data, args.sims, args.seed, workers=args.pool, quiet=True)
+        each = (time.perf_counter() - start) / args.sims
+        same = pooled.records == result.records
+        print(f"run_calibration on {args.pool} worker processes (each imports and compiles): "
+              f"{each:.3f} s per replicate over {args.sims}; ratio {naive / each:.1f}; "
+              f"replicates {'identical' if same else 'DIFFERENT'}")
+
     if args.large > args.sims:
+        # The model compiled for the first run is reused: this is the cost per replicate.
         start = time.perf_counter()
         big = run_calibration(design, data, args.large, args.seed + 1, workers=args.workers,
                               quiet=True)
         seconds = time.perf_counter() - start
-        print(f"{args.large} replicates: {seconds:.0f} s, {args.large / seconds:.1f} replicates "
-              f"per second, start-up included ({len(big.failures)} failed)")
-        # Both runs pay the same start-up (worker processes importing and
-        # compiling); the difference of their times is the replicates alone.
-        each = (seconds - small) / (args.large - args.sims)
-        print(f"start-up about {small - args.sims * each:.0f} s, then {each:.3f} s per replicate "
-              f"({1 / each:.1f} per second); ratio naive / run_calibration after start-up: "
-              f"{naive / each:.0f}")
+        print(f"{args.large} replicates (model already compiled): {seconds:.0f} s, "
+              f"{args.large / seconds:.1f} replicates per second ({len(big.failures)} failed)")
 
 
 if __name__ == "__main__":

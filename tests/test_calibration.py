@@ -181,6 +181,38 @@ def test_killed_worker_replicates_are_redone_on_local_processes(design_data, ref
     assert result.records == {i: reference.records[i] for i in range(sims)}
 
 
+def test_default_executor_runs_a_short_calibration_in_this_process(design_data, reference, monkeypatch):
+    # The model compiled for the reference run is reused: no process is started.
+    started = []
+    monkeypatch.setattr(sbc, "_local_pool", lambda *a, **k: started.append(a) or iter(()))
+    design, data = design_data
+    result = sbc.run_calibration(design, data, 12, SEED, settings=SETTINGS, quiet=True, ranks=L)
+    assert started == []
+    assert result.records == {i: reference.records[i] for i in range(12)}
+
+
+def test_default_executor_adds_helpers_when_the_work_left_pays_for_them(design_data, reference,
+                                                                        monkeypatch, tmp_path):
+    # Any work left is worth a helper here, so the parent works beside one worker process.
+    monkeypatch.setattr(sbc, "HELPERS_WORTH_SECONDS", 0.0)
+    monkeypatch.setattr(sbc.os, "cpu_count", lambda: 2)
+    pools = []
+    original = sbc._local_pool
+
+    def recorded(job, todo, workers, parent_works=False):
+        pools.append((len(todo), workers, parent_works))
+        return original(job, todo, workers, parent_works=parent_works)
+
+    monkeypatch.setattr(sbc, "_local_pool", recorded)
+    design, data = design_data
+    result = sbc.run_calibration(design, data, 30, SEED, settings=SETTINGS, quiet=True, ranks=L,
+                                 workers=None, folder=tmp_path)
+    assert pools and pools[0][1:] == (1, True)
+    assert result.records == {i: reference.records[i] for i in range(30)}
+    indices = [json.loads(line)["index"] for line in _lines(tmp_path)[1:]]
+    assert sorted(indices) == list(range(30))  # each replicate once
+
+
 # --- resume ------------------------------------------------------------------------------
 
 

@@ -82,6 +82,18 @@ ESS_RETRY_FACTOR = 4
 # failed instead of being retried again (a replicate that kills its worker
 # every time must not stall the run).
 MAX_WORKER_LOSSES = 3
+# With the default number of workers the parent process starts alone (it
+# compiles once and runs replicates at once) and starts helper processes only
+# when the work it measured left for itself exceeds this many seconds: a
+# helper spends about 10-20 s of a core importing and compiling before its
+# first replicate (benchmarks/calibration_speed.py: 18 s for two on 2 cores),
+# so helpers pay off only for work of at least twice that.
+HELPERS_WORTH_SECONDS = 40.0
+# Replicates the parent times (after the first, which includes compiling)
+# before it decides whether to start helpers; it decides earlier once this
+# many seconds have passed.
+TIMED_REPLICATES = 3
+TIMING_SECONDS = 2.0
 # Name of the derived test quantity (Modrák et al. 2023).
 LOG_LIKELIHOOD = "log_likelihood"
 CHECKPOINT = "calibration.jsonl"
@@ -471,6 +483,33 @@ def _in_process(job: _Job, todo: list[int]) -> Iterator[dict]:
         yield _replicate_task(job, index)
 
 
+def _parent_first(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
+    """The parent runs replicates itself and starts helpers when they pay off.
+
+    The parent compiles once and starts at once, with every core for its
+    chains; after timing a few replicates it hands the rest to ``workers - 1``
+    helper processes and keeps working beside them when the remaining work
+    exceeds :data:`HELPERS_WORTH_SECONDS`, and otherwise finishes alone. A short
+    calibration thus never waits for processes to start.
+    """
+    cores = os.cpu_count() or 1
+    alone = replace(job, cores=max(1, min(job.chains, cores)))
+    pending = list(todo)
+    yield _replicate_task(alone, pending.pop(0))  # pays for compiling
+    timed, started = 0, time.perf_counter()
+    while pending and timed < TIMED_REPLICATES and time.perf_counter() - started < TIMING_SECONDS:
+        yield _replicate_task(alone, pending.pop(0))
+        timed += 1
+    if not pending:
+        return
+    each = (time.perf_counter() - started) / max(timed, 1)
+    if workers > 1 and each * len(pending) > HELPERS_WORTH_SECONDS:
+        shared = replace(job, cores=max(1, cores // workers))
+        yield from _local_pool(shared, pending, workers - 1, parent_works=True)
+    else:
+        yield from _in_process(alone, pending)
+
+
 def _worker_main(conn, job: _Job) -> None:
     """A local worker process: compile, say so, then run the replicate indices
     it is sent, one at a time."""
@@ -508,13 +547,15 @@ class _Worker:
     index: int | None = None
 
 
-def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
+def _local_pool(job: _Job, todo: list[int], workers: int, parent_works: bool = False) -> Iterator[dict]:
     """Replicates on local worker processes, each compiling the model once.
 
     A worker takes work once it has compiled, one replicate at a time, so
     when a worker process dies exactly its replicate is known: it is run
     again (on a survivor or a fresh worker; survivors keep their compiled
     model) or, after :data:`MAX_WORKER_LOSSES` deaths, recorded as failed.
+    With ``parent_works`` this process runs replicates too, one between
+    each look at the workers.
     """
     from collections import deque
     from multiprocessing.connection import wait as wait_for
@@ -542,7 +583,7 @@ def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
         for _ in range(min(workers, len(pending))):
             start()
         while pending or any(w.index is not None for w in live.values()):
-            for conn in wait_for(list(live)):
+            for conn in wait_for(list(live), timeout=0 if parent_works and pending else None):
                 worker = live[conn]
                 try:
                     kind, payload = conn.recv()
@@ -571,6 +612,8 @@ def _local_pool(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
                     yield payload
                 worker.ready = True
                 hand_out(conn)
+            if parent_works and pending:
+                yield _replicate_task(job, pending.popleft())
     finally:
         _stop_workers(live)
 
@@ -784,8 +827,10 @@ def run_calibration(
     seed : int
         Every replicate's seeds derive from ``(seed, replicate index)``.
     workers : int, optional
-        Local worker processes (default: the machine's cores); 1 runs in this
-        process. Ignored when ``cluster`` is given.
+        Local worker processes; 1 runs in this process. By default this
+        process starts alone and adds helpers up to the machine's cores when
+        the work it measured is long enough to pay for their start-up
+        (:data:`HELPERS_WORTH_SECONDS`). Ignored when ``cluster`` is given.
     cluster : str or distributed cluster/Client, optional
         A Dask scheduler address (``"tcp://host:8786"``) to send replicates to.
     folder : path, optional
@@ -833,7 +878,8 @@ def run_calibration(
         )
     simulator = SIMULATOR_RECIPE if _has_simulator(design) else SIMULATOR_MODEL
     local = cluster is None
-    workers = max(1, int(workers if workers is not None else os.cpu_count() or 1)) if local else 0
+    chosen = workers is not None
+    workers = max(1, int(workers if chosen else os.cpu_count() or 1)) if local else 0
     header = {
         "format": FORMAT,
         "design": _design_label(design),
@@ -856,7 +902,10 @@ def run_calibration(
     try:
         todo = [i for i in range(sims) if i not in records]
         if todo and (not local or workers > 1):
-            _check_portable(job)
+            if local and not chosen and _unportable(job):
+                workers = 1  # helpers could not rebuild the design; this process does it all
+            else:
+                _check_portable(job)
         done = sum(1 for i in records if i < sims)
         failed = sum(1 for i, r in records.items() if i < sims and r.get("failed"))
         with Progress(sims, "calibration", quiet, done=done, failed=failed) as bar:
@@ -866,6 +915,8 @@ def run_calibration(
                 stream = _dask_pool(job, todo, cluster)
             elif workers == 1 or len(todo) == 1:
                 stream = _in_process(job, todo)
+            elif not chosen:
+                stream = _parent_first(job, todo, workers)
             else:
                 stream = _local_pool(job, todo, min(workers, len(todo)))
             for record in stream:
@@ -880,12 +931,20 @@ def run_calibration(
                      str(folder) if folder is not None else None)
 
 
-def _check_portable(job: _Job) -> None:
-    """Fail early, with one line, when the design cannot travel to another process."""
+def _unportable(job: _Job) -> Exception | None:
+    """Why the design cannot travel to another process (None when it can)."""
     try:
         pickle.loads(pickle.dumps(job))
     except Exception as err:
+        return err
+    return None
+
+
+def _check_portable(job: _Job) -> None:
+    """Fail early, with one line, when the design cannot travel to another process."""
+    err = _unportable(job)
+    if err is not None:
         raise OptionError(
             f"calibration on several processes needs a design that can be rebuilt from its "
             f"recipe file; found one that cannot ({type(err).__name__}: {err}); use workers=1"
-        ) from None
+        )
