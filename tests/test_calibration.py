@@ -427,3 +427,28 @@ def _finding(p, tests=2, direction="too_narrow"):
 ])
 def test_rule_splits_the_level_over_the_quantities_tested(p, level):
     assert verdicts.judge(_finding(p)).level == level
+
+
+def _likelihood_finding(p, approximate=""):
+    numbers = {"quantity": "log_likelihood", "tests": 2, "direction": "too_narrow", "simulator": "recipe"}
+    if approximate:
+        numbers["approximate_likelihood"] = approximate
+    return Finding(IMPLEMENTATION, "calibration", "calibration:log_likelihood", 0.0, p, numbers=numbers)
+
+
+def test_log_likelihood_departure_of_a_documented_approximation_is_not_a_coding_error():
+    judged = verdicts.judge(_likelihood_finding(1e-6, "one multinomial stands in for a sum of them"))
+    assert judged.level == 0 and "as expected" in judged.sentence
+    assert verdicts.judge(_likelihood_finding(1e-6)).level == 2
+
+
+def test_only_the_log_likelihood_finding_carries_the_approximation(reference):
+    findings = calibration_findings(reference, "an approximation")
+    marked = [f.numbers["quantity"] for f in findings if "approximate_likelihood" in f.numbers]
+    assert marked == [sbc.LOG_LIKELIHOOD]
+
+
+def test_stage_transitions_declares_its_approximate_likelihood():
+    # Its likelihood is documented as one multinomial per period (recipes/stage_transitions.py).
+    assert registry.load().get("stage-transitions").approximate_likelihood
+    assert not registry.load().get("threshold-geometry").approximate_likelihood

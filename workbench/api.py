@@ -282,7 +282,7 @@ def calibrate(
     """
     from workbench import verdicts
     from workbench.calibration import run_calibration
-    from workbench.checks.calibration import calibration_findings
+    from workbench.checks.calibration import calibration_findings, likelihood_approximation
 
     if seed < 0:
         raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
@@ -294,7 +294,7 @@ def calibrate(
     folder = calibration_folder(out, design.label(), force) if write else None
     result = run_calibration(design, dataset, sims, seed, workers=workers, cluster=cluster,
                              folder=folder, settings=settings, quiet=quiet)
-    judged = next(v for v in verdicts.decide([], calibration_findings(result)) if v.key == "implementation")
+    judged = next(v for v in verdicts.decide([], calibration_findings(result, likelihood_approximation(design))) if v.key == "implementation")
     command = command or (f"workbench calibrate {target} --data {data} --sims {sims} --seed {seed}"
                           + "".join(f" --set {k}={v}" for k, v in (options or {}).items())
                           + "".join(f" --prior {k}={v}" for k, v in (priors or {}).items()))

@@ -194,6 +194,11 @@ class Recipe:
     people_decisions
         True when the recipe is typically used for decisions about people
         (the report then carries the caution).
+    approximate_likelihood
+        Empty when the model's likelihood is the story's exact law; otherwise
+        why it only approximates it. Calibration then still ranks the
+        log-likelihood but does not count its departure against the model
+        code (data from the exact story are expected to rank off).
     """
 
     name: str
@@ -213,6 +218,7 @@ class Recipe:
     demo: Callable[..., "DemoScenario"] | None = None
     people_decisions: bool = False
     source: str = ""
+    approximate_likelihood: str = ""
 
     def read_options(self, given: Mapping[str, Any]) -> dict[str, Any]:
         """Parse ``--set`` values against the declared options, filling defaults."""

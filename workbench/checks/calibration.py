@@ -26,13 +26,17 @@ ECDF_FIGURE = "calibration-ecdf"
 HISTOGRAM_FIGURE = "calibration-ranks"
 
 
-def calibration_findings(result) -> list[Finding]:
+def calibration_findings(result, approximate_likelihood: str = "") -> list[Finding]:
     """Findings of a :class:`workbench.calibration.CalibrationResult`.
 
     Each quantity's finding carries ``tests`` (how many quantities were
     tested, for the verdict's multiplicity correction), the departure's
     ``shape`` and ``direction``, and whether the simulator was independent.
+    ``approximate_likelihood`` (the recipe's reason, when its likelihood only
+    approximates the story) travels with the log-likelihood's finding.
     """
+    from workbench.calibration import LOG_LIKELIHOOD
+
     tests = len(result.tests)
     used = len(result.replicates)
     source = ("simulated by the recipe's own simulator" if result.checks_model_code
@@ -62,6 +66,8 @@ def calibration_findings(result) -> list[Finding]:
                 "ecdf_p_value": test.ecdf_p_value,
                 "chi2_p_value": test.chi2_p_value,
                 "simulator": result.simulator,
+                **({"approximate_likelihood": approximate_likelihood}
+                   if approximate_likelihood and name == LOG_LIKELIHOOD else {}),
             },
             figure=ECDF_FIGURE,
         ))
@@ -113,4 +119,9 @@ def calibration(context: Context) -> list[Finding]:
     """Findings for ``implementation`` when a calibration ran; none otherwise."""
     if context.calibration is None:
         return []
-    return calibration_findings(context.calibration)
+    return calibration_findings(context.calibration, likelihood_approximation(context.design))
+
+
+def likelihood_approximation(design) -> str:
+    """The design's recipe's reason its likelihood approximates the story ('' when exact)."""
+    return getattr(getattr(design, "recipe", None), "approximate_likelihood", "") or ""

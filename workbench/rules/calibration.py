@@ -68,6 +68,10 @@ def calibration_ranks(f: Finding) -> Judgement:
         advice = LIKELIHOOD_ADVICE
     else:
         advice = ADVICE[n["direction"]].format(q=base)
+    if n.get("approximate_likelihood") and p < DOUBTFUL_FAMILY_ALPHA / tests:
+        # A documented approximation of the likelihood, not a coding error.
+        return Judgement(0, f"The ranks of {name} depart from uniform (p = {p:.2g}), as expected: "
+                            f"{n['approximate_likelihood']}.")
     if p < BROKEN_FAMILY_ALPHA / tests:
         sentence = f"The ranks of {name} are far from uniform (p = {p:.2g}): {shape}.{note}"
         return Judgement(2, sentence, advice, strength=strength + 3.0)
