@@ -31,7 +31,10 @@ SHAPES = {
 ADVICE = {
     "too_narrow": "Compare the model with the simulator line by line for {q}: look for a "
                   "variance coded where a standard deviation is meant (or the reverse), data "
-                  "counted twice, or a likelihood sharper than the story.",
+                  "counted twice, or a likelihood sharper than the story. If they agree, look at "
+                  "the replicates ranked 0 or L: chains trapped in a minor mode (data that say "
+                  "little about a parameter, e.g. every event before the first look) give the "
+                  "same picture; start chains nearer the data or use a more informative prior.",
     "too_wide": "Compare the model with the simulator line by line for {q}: look for a "
                 "standard deviation coded where a variance is meant, data left out of the "
                 "likelihood, or a likelihood flatter than the story.",
