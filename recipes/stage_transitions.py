@@ -86,11 +86,18 @@ STAGES = Option("stages", "the stage count columns in their order, comma separat
                 parse=_name_list(2))
 ABSORBING = Option("absorbing", "the end stages among 'stages', comma separated (at least one)",
                    parse=_name_list(1))
+class Move(tuple):
+    """One allowed move (FROM, TO); written back as ``FROM>TO`` in labels and notebooks."""
+
+    def __str__(self) -> str:
+        return ">".join(self)
+
+
 def _moves_option(text: str):
     text = str(text).strip()
     if text in {"forward", "any"}:
         return text
-    pairs = tuple(tuple(part.strip() for part in item.split(">")) for item in text.split(",") if item.strip())
+    pairs = tuple(Move(part.strip() for part in item.split(">")) for item in text.split(",") if item.strip())
     if not pairs or any(len(pair) != 2 or not all(pair) for pair in pairs):
         raise ValueError("expected forward, any, or moves written FROM>TO separated by commas")
     return pairs

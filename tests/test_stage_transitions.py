@@ -261,3 +261,15 @@ def test_demo_table_validates_with_its_options():
 
 def test_registry_lists_the_recipe():
     assert registry.load().get("stage-transitions").name == "stage-transitions"
+
+
+def test_listed_moves_are_written_back_as_they_are_typed():
+    # The design label and the notebook's options must parse again to the same moves.
+    from workbench.recipe import make_design, option_text
+
+    text = "applied>training,applied>left,training>certified"
+    design = make_design(RECIPE, {"stages": "applied,training,certified,left", "absorbing": "certified,left",
+                                  "moves": text}, {})
+    assert option_text(design.options["moves"]) == text
+    assert f"moves={text}" in design.label()
+    assert RECIPE.read_options({**{k: option_text(v) for k, v in design.options.items()}}) == design.options
