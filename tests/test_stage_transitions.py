@@ -273,3 +273,14 @@ def test_listed_moves_are_written_back_as_they_are_typed():
     assert option_text(design.options["moves"]) == text
     assert f"moves={text}" in design.label()
     assert RECIPE.read_options({**{k: option_text(v) for k, v in design.options.items()}}) == design.options
+
+
+def test_prior_predictive_check_compares_mean_counts_only(fitted):
+    # The one-multinomial likelihood has the story's means but a wider spread
+    # (recipe docstring), so a prior predictive sd would be too wide by construction.
+    from workbench.checks import Context
+    from workbench.checks.prior import prior_predictive_coverage
+
+    design, data, fit = fitted
+    checked = [f.check for f in prior_predictive_coverage(Context(design, data, fit, {}, None))]
+    assert checked == ["prior_coverage:y:mean"]

@@ -282,7 +282,8 @@ def calibrate(
     """
     from workbench import verdicts
     from workbench.calibration import run_calibration
-    from workbench.checks.calibration import calibration_findings, likelihood_approximation
+    from workbench.checks.calibration import calibration_findings
+    from workbench.recipe import likelihood_approximation
 
     if seed < 0:
         raise OptionError(f"--seed: expected an integer >= 0; found {seed}")

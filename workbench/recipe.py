@@ -198,7 +198,8 @@ class Recipe:
         Empty when the model's likelihood is the story's exact law; otherwise
         why it only approximates it. Calibration then still ranks the
         log-likelihood but does not count its departure against the model
-        code (data from the exact story are expected to rank off).
+        code (data from the exact story are expected to rank off), and the
+        prior predictive check compares mean outcomes only.
     """
 
     name: str
@@ -342,6 +343,11 @@ class Design:
         parts += [f"{k}={option_text(v)}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
+
+
+def likelihood_approximation(design) -> str:
+    """Why the design's likelihood only approximates its story ('' when it is exact)."""
+    return getattr(getattr(design, "recipe", None), "approximate_likelihood", "") or ""
 
 
 def _design_from_source(source: str, name: str, options: dict, priors: dict) -> "Design":

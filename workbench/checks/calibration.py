@@ -20,6 +20,7 @@ from __future__ import annotations
 
 from workbench.checks import Context, check
 from workbench.findings import IMPLEMENTATION, Finding
+from workbench.recipe import likelihood_approximation
 
 # Figure names the report uses for the calibration plots.
 ECDF_FIGURE = "calibration-ecdf"
@@ -121,7 +122,3 @@ def calibration(context: Context) -> list[Finding]:
         return []
     return calibration_findings(context.calibration, likelihood_approximation(context.design))
 
-
-def likelihood_approximation(design) -> str:
-    """The design's recipe's reason its likelihood approximates the story ('' when exact)."""
-    return getattr(getattr(design, "recipe", None), "approximate_likelihood", "") or ""

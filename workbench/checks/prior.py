@@ -26,6 +26,7 @@ import numpy as np
 
 from workbench.checks import Context, check
 from workbench.findings import PRIORS, Finding
+from workbench.recipe import likelihood_approximation
 
 
 def free_parameters(fit) -> list[str]:
@@ -34,10 +35,19 @@ def free_parameters(fit) -> list[str]:
     return [n for n in names if n in fit.idata["posterior"].data_vars]
 
 
-def _summaries(values: np.ndarray) -> dict[str, np.ndarray]:
-    """Summary statistics over the last axis (the rows of the table)."""
+def _summaries(values: np.ndarray, spread: bool = True) -> dict[str, np.ndarray]:
+    """Summary statistics over the last axis (the rows of the table).
+
+    ``spread=False`` keeps the mean alone: a likelihood that approximates its
+    story with the same means but a wider spread (a recipe's documented
+    ``approximate_likelihood``) makes the prior predictive sd too wide by
+    construction, so it says nothing about the priors.
+    """
     flat = values.reshape(values.shape[0], -1).astype(float)
-    return {"mean": flat.mean(axis=1), "sd": flat.std(axis=1)}
+    out = {"mean": flat.mean(axis=1)}
+    if spread:
+        out["sd"] = flat.std(axis=1)
+    return out
 
 
 @check
@@ -48,12 +58,13 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
         return []
     prior_pred = fit.draws(group="prior_predictive")
     observed = fit.idata["observed_data"].to_dataset()
+    spread = not likelihood_approximation(context.design)
     findings = []
     for name in observed.data_vars:
         if name not in prior_pred:
             continue
-        sims = _summaries(prior_pred[name])
-        obs = _summaries(observed[name].values[None, ...])
+        sims = _summaries(prior_pred[name], spread)
+        obs = _summaries(observed[name].values[None, ...], spread)
         for stat, simulated in sims.items():
             o = float(obs[stat][0])
             below = float(np.mean(simulated < o) + 0.5 * np.mean(simulated == o))
