@@ -86,6 +86,8 @@ STAGES = Option("stages", "the stage count columns in their order, comma separat
                 parse=_name_list(2))
 ABSORBING = Option("absorbing", "the end stages among 'stages', comma separated (at least one)",
                    parse=_name_list(1))
+
+
 class Move(tuple):
     """One allowed move (FROM, TO); written back as ``FROM>TO`` in labels and notebooks."""
 

@@ -295,7 +295,8 @@ def calibrate(
     folder = calibration_folder(out, design.label(), force) if write else None
     result = run_calibration(design, dataset, sims, seed, workers=workers, cluster=cluster,
                              folder=folder, settings=settings, quiet=quiet)
-    judged = next(v for v in verdicts.decide([], calibration_findings(result, likelihood_approximation(design))) if v.key == "implementation")
+    findings = calibration_findings(result, likelihood_approximation(design))
+    judged = next(v for v in verdicts.decide([], findings) if v.key == "implementation")
     command = command or (f"workbench calibrate {target} --data {data} --sims {sims} --seed {seed}"
                           + "".join(f" --set {k}={v}" for k, v in (options or {}).items())
                           + "".join(f" --prior {k}={v}" for k, v in (priors or {}).items()))

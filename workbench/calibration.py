@@ -504,8 +504,8 @@ def _parent_first(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
         return
     each = (time.perf_counter() - started) / max(timed, 1)
     if workers > 1 and each * len(pending) > HELPERS_WORTH_SECONDS:
-        shared = replace(job, cores=max(1, cores // workers))
-        yield from _local_pool(shared, pending, workers - 1, parent_works=True)
+        # run_calibration already gave ``job`` one core per process for several workers.
+        yield from _local_pool(job, pending, workers - 1, parent_works=True)
     else:
         yield from _in_process(alone, pending)
 

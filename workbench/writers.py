@@ -38,22 +38,15 @@ FILE_MODE = _file_mode()
 
 def atomic_write(path: str | Path, data: bytes | str) -> Path:
     """Write ``data`` to ``path`` through a temporary file and a rename."""
-    raise_if_interrupted()
-    path = Path(path)
     raw = data.encode("utf-8") if isinstance(data, str) else data
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as handle:
-            os.fchmod(handle.fileno(), FILE_MODE)
+
+    def write(tmp):
+        with open(tmp, "wb") as handle:
             handle.write(raw)
             handle.flush()
             os.fsync(handle.fileno())
-        raise_if_interrupted()
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return path
+
+    return atomic_write_with(path, write)
 
 
 def atomic_write_with(path: str | Path, write) -> Path:

@@ -121,4 +121,3 @@ def calibration(context: Context) -> list[Finding]:
     if context.calibration is None:
         return []
     return calibration_findings(context.calibration, likelihood_approximation(context.design))
-
