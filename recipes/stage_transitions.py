@@ -14,21 +14,24 @@ transient stage has a log-odds ``move_logit`` against staying (softmax rows).
 Data. The table counts the units of each cohort in each stage at consecutive
 periods; every unit is counted in exactly one stage each period.
 
-Likelihood (a documented approximation). Given the counts ``n_{t-1}`` of a
-cohort at one period, the exact law of its counts at the next is a sum of
-independent multinomials, one per source stage (no closed form). We use one
-multinomial with the same mean:
+Likelihood (a documented approximation). Units in end stages at one period
+are still there at the next, so only the ``M`` units in transient stages
+(the movers) carry information; their destinations (the transient counts at
+the next period and the increments of the end stages) are what the model
+observes. Given the movers' stages ``m_{t-1}``, the exact law of their
+destinations is a sum of independent multinomials, one per source stage (no
+closed form). We use one multinomial with the same mean:
 
-    n_t | n_{t-1} ~ Multinomial(N, (n_{t-1} / N) @ P).
+    d_t | m_{t-1} ~ Multinomial(M, (m_{t-1} / M) @ P).
 
 Its means are exact and its covariance exceeds the exact one by the positive
-semi-definite ``sum_i n_i (P_i - pbar)(P_i - pbar)^T``, so it errs towards
-wider, never narrower, uncertainty; it is exact when all units of a cohort sit
-in one stage at the previous period. The first period of each cohort is
-conditioned on, not modelled. Because the approximation is wider than the
-exact law, the dispersion check of ``independent_units`` flags only variation
-beyond it: on data from the story itself the observed Pearson statistic sits
-below its replicates.
+semi-definite ``sum_i m_i (P_i - pbar)(P_i - pbar)^T``, so it errs towards
+wider, never narrower, uncertainty; it is exact when the movers all sit in
+one stage. The first period of each cohort is conditioned on, not modelled.
+The dispersion check of ``independent_units`` therefore standardises by the
+story's own variance ``sum_i m_i P_ij (1 - P_ij)`` (the deterministic
+``story_var``), so that data from the story sit at 1 and units that move
+together stand out.
 
 Columns: ``cohort``, ``period`` (whole numbers, consecutive within a cohort),
 one count column per stage (optional ``group``). Options: ``stages``,
@@ -244,10 +247,21 @@ def stage_counts(data: Dataset) -> np.ndarray:
 
 
 def observed(data: Dataset) -> dict:
-    """The containers: counts after each move and the counts before it."""
+    """The containers: the movers' destinations at each step and the counts before it.
+
+    Destinations are the counts of transient stages after the move and what
+    each end stage gained; units already in an end stage are not movers.
+    """
     n = stage_counts(data)
     step = data.extra["step"]
-    return {"counts": n[step], "previous": n[step - 1]}
+    previous = n[step - 1]
+    held = np.where(data.extra["absorbing"][None, :], previous, 0)
+    return {"counts": n[step] - held, "previous": previous}
+
+
+def movers(data: Dataset) -> np.ndarray:
+    """Units in transient stages before each step (steps,)."""
+    return (observed(data)["previous"] * ~data.extra["absorbing"]).sum(axis=1)
 
 
 # --- transition matrices ------------------------------------------------------------------
@@ -384,10 +398,16 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
             start = pt.set_subtensor(start[:, 0], start[:, 0] + pt.eq(start.sum(axis=-1), 0))
             per_step = _with_dormant(data, matrices, prior("dormant"), start,
                                      data["age"][step - 1], cohort_of_step)
-        total = previous.sum(axis=-1, keepdims=True)
-        p = ((previous / total)[:, :, None] * per_step).sum(axis=1)
+        moving = previous * (~data.extra["absorbing"]).astype(float)
+        total = moving.sum(axis=-1, keepdims=True)
+        source = moving / pt.maximum(total, 1.0)
+        p = (source[:, :, None] * per_step).sum(axis=1)
         p = pt.clip(p, EPS, 1.0)
         p = pm.Deterministic("expected", p / p.sum(axis=-1, keepdims=True), dims=("step", "stage"))
+        # Variance of each destination count when the movers of every source
+        # stage move independently (the story's exact law, not the likelihood's).
+        pm.Deterministic("story_var", (moving[:, :, None] * per_step * (1.0 - per_step)).sum(axis=1),
+                         dims=("step", "stage"))
         n = total[:, 0]
         if relax == "overdispersion":
             rho = prior("overdispersion")
@@ -505,7 +525,7 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
 
 def _moments(data: Dataset, draws: dict):
     p = np.asarray(draws["expected"], dtype=float)
-    n = observed(data)["previous"].sum(axis=1)[:, None]
+    n = movers(data)[:, None]
     return n * p, n * p * (1 - p), p
 
 
@@ -513,7 +533,7 @@ def stuck_excess(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Standardised excess of units still in transient stages at the oldest quarter of moves."""
     _, _, p = _moments(data, draws)
     transient = ~data.extra["absorbing"]
-    n = observed(data)["previous"].sum(axis=1)
+    n = movers(data)
     q = p[..., transient].sum(axis=-1)
     y = np.asarray(outcomes["y"], dtype=float)[..., transient].sum(axis=-1)
     return nearest_shortfall(y, n * q, n * q * (1 - q), -data["age"][data.extra["step"]])
@@ -531,13 +551,20 @@ def period_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 
 
 def _reachable(data: Dataset) -> np.ndarray:
-    previous = observed(data)["previous"]
-    return ((previous > 0).astype(int) @ data.extra["allowed"].astype(int)) > 0
+    """Mask (steps, stages) of the destinations some mover of the step can reach."""
+    moving = observed(data)["previous"] * ~data.extra["absorbing"]
+    return ((moving > 0).astype(int) @ data.extra["allowed"].astype(int)) > 0
 
 
 def dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
-    """Pearson chi-square per reachable (move, stage) cell (1 under multinomial variation)."""
-    mean, var, _ = _moments(data, draws)
+    """Pearson chi-square per reachable (move, stage) cell, standardised by the story's variance.
+
+    The variance is the exact one of independent movers (``story_var``), not
+    the wider one of the one-multinomial likelihood, so data from the story
+    give about 1 and units that move together give more.
+    """
+    mean, _, _ = _moments(data, draws)
+    var = np.asarray(draws["story_var"], dtype=float)
     mask = _reachable(data)
     y = np.asarray(outcomes["y"], dtype=float)
     return pearson_dispersion(y[:, mask], mean[:, mask], var[:, mask])

@@ -128,15 +128,34 @@ def test_forward_moves_allow_staying_later_stages_and_end_stages_only():
     np.testing.assert_array_equal(allowed[2:], np.eye(4, dtype=bool)[2:])
 
 
-def test_model_expected_shares_are_previous_shares_times_the_matrix():
+def test_model_expected_shares_are_the_movers_shares_times_the_matrix():
     design, data = validated(small_table())
     logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])  # allowed moves against staying, row by row
     model = pm.do(design.build(data), {"move_logit": logits})
     expected, transition = pm.draw([model["expected"], model["transition"]], mode=QUICK)
     previous = RECIPE.observed(data)["previous"]
+    moving = previous * ~data.extra["absorbing"]
     np.testing.assert_allclose(transition[:2].sum(axis=1), 1.0)
-    np.testing.assert_allclose(expected, previous / previous.sum(axis=1, keepdims=True) @ transition,
+    np.testing.assert_allclose(expected, moving / moving.sum(axis=1, keepdims=True) @ transition,
                                atol=1e-8)
+
+
+def test_observed_destinations_leave_out_units_already_in_end_stages():
+    _, data = validated(small_table())
+    values = RECIPE.observed(data)
+    moving = values["previous"] * ~data.extra["absorbing"]
+    np.testing.assert_array_equal(values["counts"].sum(axis=1), moving.sum(axis=1))
+    assert (values["counts"] >= 0).all()
+
+
+def test_story_variance_is_the_sum_of_one_multinomial_per_source_stage():
+    # Variance of a sum of independent multinomials: sum_i n_i P_ij (1 - P_ij) (common practice).
+    design, data = validated(small_table())
+    logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])
+    model = pm.do(design.build(data), {"move_logit": logits})
+    story_var, transition = pm.draw([model["story_var"], model["transition"]], mode=QUICK)
+    moving = RECIPE.observed(data)["previous"] * ~data.extra["absorbing"]
+    np.testing.assert_allclose(story_var, moving @ (transition * (1 - transition)), atol=1e-8)
 
 
 def test_simulated_means_follow_powers_of_the_matrix():
@@ -167,8 +186,11 @@ def test_statistic_rises_when_a_fault_is_planted(key, fault):
     def value(extra, seed):
         sim = design.simulate(np.random.default_rng(seed), data, {"transition": TRUE_P, **extra})
         counts = RECIPE.observed(sim)
-        expected = counts["previous"] / counts["previous"].sum(axis=1, keepdims=True) @ TRUE_P
-        return float(stat.compute(sim, {"y": counts["counts"][None]}, {"expected": expected[None]})[0])
+        moving = counts["previous"] * ~data.extra["absorbing"]
+        expected = moving / np.maximum(moving.sum(axis=1, keepdims=True), 1) @ TRUE_P
+        story_var = moving @ (TRUE_P * (1 - TRUE_P))
+        draws = {"expected": expected[None], "story_var": story_var[None]}
+        return float(stat.compute(sim, {"y": counts["counts"][None]}, draws)[0])
 
     clean = np.mean([value({}, s) for s in range(3)])
     faulty = np.mean([value(fault, s) for s in range(3)])
