@@ -1,5 +1,14 @@
 """Rules for a recipe assumption's own evidence: its targeted predictive
-statistic (``ppc``) and its relaxation fit (``relaxation``)."""
+statistic (``ppc``) and its relaxation fit (``relaxation``).
+
+References
+----------
+Stone, M. (1977). An asymptotic equivalence of choice of model by
+cross-validation and Akaike's criterion. JRSS B 39(1), 44-47 (from memory).
+Sivula, T., Magnusson, M., Matamoros, A. A. and Vehtari, A. (2022).
+Uncertainty in Bayesian leave-one-out cross-validation based model comparison.
+arXiv:2008.10296.
+"""
 
 from __future__ import annotations
 
@@ -24,6 +33,14 @@ SHARE_BEYOND_DOUBTFUL = 0.8
 # below about 2 SE as noise); a floor of 2 elpd units keeps tiny SEs honest.
 ELPD_SE_MULTIPLE = 2.0
 ELPD_FLOOR = 2.0
+# A gain this large is clear whatever its SE. The expansion is nested and adds
+# one parameter, and leave-one-out is asymptotically equivalent to AIC (Stone
+# 1977), so on data that satisfy the assumption the gain behaves like
+# (chi-square_1 - 2) / 2: above 4 with a chance of about 0.2% (chi-square_1
+# > 10), half that for a parameter bounded at its null. The SE is least
+# reliable exactly when the two models predict alike (Sivula et al. 2022),
+# and 4 is also where they stop calling a difference small.
+NESTED_GAIN_BROKEN = 4.0
 
 
 @rule("ppc")
@@ -45,7 +62,7 @@ def targeted_statistic(f: Finding) -> Judgement:
 def expansion(f: Finding) -> Judgement:
     n = f.numbers
     share, diff, se = n["share_beyond"], n["elpd_diff"], n["elpd_se"]
-    better = diff > max(ELPD_SE_MULTIPLE * se, ELPD_FLOOR)
+    better = diff > max(ELPD_SE_MULTIPLE * se, ELPD_FLOOR) or diff > NESTED_GAIN_BROKEN
     strength = max(diff, 0.0) / max(se, 1.0)
     name = n["parameter"]
     if share >= SHARE_BEYOND_BROKEN and better:

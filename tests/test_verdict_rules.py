@@ -1,0 +1,49 @@
+"""How a relaxation fit becomes a verdict (workbench.rules.model_fit).
+
+Synthetic findings, no fits: each test gives the numbers a relaxation fit
+would report and checks the judgement.
+"""
+
+from __future__ import annotations
+
+import pytest
+from scipy import stats
+
+from workbench import verdicts
+from workbench.findings import Finding
+from workbench.rules import model_fit
+
+
+def judged(share_beyond, gain, se):
+    finding = Finding("curve_shape", "relaxation", "relaxation:curve_power", 0.8, None, "expanded",
+                      {"parameter": "curve_power", "null": 0.0, "negligible": 0.1,
+                       "share_beyond": share_beyond, "interval": [0.4, 1.2], "elpd_diff": gain,
+                       "elpd_se": se})
+    return verdicts.judge(finding)
+
+
+def test_a_gain_above_twice_its_se_breaks_the_assumption():
+    assert judged(1.0, 6.0, 2.5).level == 2
+
+
+def test_a_nested_gain_above_four_breaks_the_assumption_whatever_its_se():
+    assert judged(1.0, model_fit.NESTED_GAIN_BROKEN + 0.5, 4.0).level == 2
+
+
+def test_a_gain_below_four_and_below_twice_its_se_is_only_doubtful():
+    assert judged(1.0, 3.5, 2.5).level == 1
+
+
+def test_a_large_gain_with_mass_near_the_null_does_not_break():
+    assert judged(0.9, 8.0, 2.0).level == 1
+
+
+def test_no_gain_holds():
+    assert judged(0.5, -0.8, 0.4).level == 0
+
+
+def test_the_null_chance_of_a_nested_gain_above_the_threshold_is_small():
+    # A one-parameter nested expansion gains about (chi2_1 - 2) / 2 on data that
+    # satisfy the assumption (Stone 1977: LOO ~ AIC); reference tail from scipy.stats.chi2.
+    chance = stats.chi2(1).sf(2 * model_fit.NESTED_GAIN_BROKEN + 2)
+    assert chance == pytest.approx(0.0016, abs=0.0002)
