@@ -142,7 +142,8 @@ DEMO_TRUTH_DAYS = {"scale_days": 9.0, "shape": 2.4, "eventual": 0.82}
 
 def demo(rng: np.random.Generator) -> DemoScenario:
     """Seedling emergence in a nursery: trays sown on 14 days, inspected until emergence ends."""
-    inspections = np.array([3, 5, 7, 10, 14, 21, 28])
+    # Every other day while seedlings come up, once more a week after.
+    inspections = np.array([3, 5, 7, 9, 11, 13, 15, 17, 19, 21, 28])
     rows = []
     for tray in range(14):
         sown_days_ago = 30 - 2 * tray  # the youngest trays have fewer inspections so far
@@ -162,9 +163,10 @@ def demo(rng: np.random.Generator) -> DemoScenario:
     table = simulated.to_frame()[["cohort", "age", "exposed", "events"]].astype({"age": int})
     return DemoScenario(
         title="Seedling emergence in a tree nursery",
-        story=("A nursery sows a tray of native tree seed every other day and counts seedlings at "
-               "3, 5, 7, 10, 14, 21 and 28 days; not every seed is viable. How many seeds ever "
-               "emerge, and how fast? (ages in days; model scale is relative to the median "
+        story=("A nursery sows a tray of native tree seed every other day and counts seedlings "
+               "every other day from day 3 to day 21 and once more at day 28; not every seed is "
+               "viable. How many seeds ever emerge, and how fast? (ages in days; model scale is "
+               "relative to the median "
                f"inspection age of {data.extra['age_ref']:g} days)"),
         table=table,
         options=options,
