@@ -30,7 +30,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves
+from workbench import cohorts, curves, engine
 from workbench.recipe import (
     Assumption,
     Column,
@@ -115,9 +115,14 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     # Log-odds of every part against the first outcome (the reference).
     model_coords["part"] = data.extra["outcomes"][1:] + (["open"] if estimate else [])
     with pm.Model(coords=model_coords) as model:
-        scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",))
+        counts = cohorts.counts_container(data)
+        scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = prior("shape", dims="outcome")
         logit = prior("share_logit", dims="part")
+        seen = cohorts.observed_shares(data, counts)
+        parts = pt.concatenate([seen, pt.stack([1.0 - seen.sum()])]) if estimate else seen
+        log_parts = pt.log(pt.maximum(parts, cohorts.START_MARGIN))
+        engine.start_at(logit, log_parts[1:] - log_parts[0], ("part",))
         parts = pt.special.softmax(pt.concatenate([pt.zeros(1), logit]), axis=-1)
         share = parts[:k]
         if estimate:
@@ -132,7 +137,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
             data, options["family"], scale_group, shape, share, relax, prior
         )
         pm.Deterministic("cumulative", cumulative, dims=("row", "outcome"))
-        cohorts.cell_likelihood(data, cohorts.cells_tensor(data, cumulative), relax, prior)
+        cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
     return model
 
 

@@ -32,7 +32,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves
+from workbench import cohorts, curves, engine
 from workbench.recipe import (
     Assumption,
     Column,
@@ -91,10 +91,13 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pytensor.tensor as pt
 
     with pm.Model(coords=cohorts.coords(data)) as model:
-        scale_group = cohorts.timing_scales(data, options, prior, dims=())
+        counts = cohorts.counts_container(data)
+        scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
         shape = prior("shape")
         if options["eventual"] == "estimate":
             eventual = prior("eventual")
+            share = cohorts.observed_shares(data, counts)[0]
+            engine.start_at(eventual, pt.clip(share, cohorts.START_MARGIN, 1.0 - cohorts.START_MARGIN))
             if relax == "never":
                 # Already relaxed by the estimated eventual share: the
                 # expansion does not apply and stays at its null.
@@ -108,7 +111,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
             data, options["family"], scale_group, shape, share, relax, prior
         )
         pm.Deterministic("cumulative", cumulative[:, 0], dims="row")
-        cohorts.cell_likelihood(data, cohorts.cells_tensor(data, cumulative), relax, prior)
+        cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
     return model
 
 

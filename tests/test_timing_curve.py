@@ -282,3 +282,49 @@ def test_demo_table_validates_and_its_truth_names_parameters():
 
 def test_registry_lists_the_recipe():
     assert registry.load().get("timing-curve").name == "timing-curve"
+
+
+# --- where the chains start ----------------------------------------------------------------------
+
+
+def early_layout():
+    """The demo layout with every event before the first look (a flat observed curve)."""
+    design = make_design(RECIPE, {"family": "weibull", "eventual": "estimate"}, {})
+    base = design.validate(RECIPE.demo(np.random.default_rng(1)).table)
+    return design, base
+
+
+def chain_shapes(fit) -> np.ndarray:
+    return fit.idata["posterior"]["shape"].median("draw").values
+
+
+def test_chains_of_a_flat_early_curve_stay_out_of_the_flat_curve_mode():
+    # With the chains started at the prior's centre, most chains of such a table
+    # settled at shape ~0.03 (a curve flat at 1 - 1/e), a mode ~50 log-density units
+    # below the one the data support (measured on the demo layout).
+    from workbench.harness import fit_design
+
+    design, base = early_layout()
+    settings = engine.Settings(draws=200, tune=300, chains=4, prior_draws=100)
+    ordinary = design.simulate(np.random.default_rng(2), base, {"scale": 1.0, "shape": 2.4, "eventual": 0.8})
+    early = design.simulate(np.random.default_rng(0), base, {"scale": 0.05, "shape": 1.35, "eventual": 0.7})
+    last = early.extra["last_row"][early["cohort"]]
+    assert np.all(early["events"] == early["events"][last])  # nothing new after the first look
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit_design(design, ordinary, 1, settings, prior=False)
+        # The same compiled model refitted: the chains start at the new data's ages.
+        refit = fit_design(design, early, 1, settings, prior=False)
+    assert np.all(chain_shapes(refit) > 0.5)
+
+
+def test_a_prior_override_that_excludes_the_data_start_keeps_its_own_start():
+    design, base = early_layout()
+    design = make_design(RECIPE, design.options, {"scale": "uniform(0.5,2)"})
+    early = design.simulate(np.random.default_rng(0), base, {"scale": 0.05, "shape": 1.35, "eventual": 0.7})
+    model = design.build(early)
+    assert finite_logp(model)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit = engine.fit(model, seed=1, settings=SETTINGS, prior=False)
+    assert fit.idata["posterior"]["scale"].min() >= 0.5

@@ -358,11 +358,10 @@ def _sample_arrays(sampler, seed: int, settings: Settings, observed, names):
     import nutpie
     import pyarrow
 
-    unknown = set(observed) - sampler.data_names
-    if unknown:
-        raise WorkbenchError(f"model has no data container named {sorted(unknown)[0]!r}")
-    compiled = sampler.compiled.with_data(**{k: np.asarray(v) for k, v in observed.items()})
-    with warnings.catch_warnings():
+    from workbench.engine import containers_set
+
+    compiled = sampler.with_data(observed)
+    with warnings.catch_warnings(), containers_set(sampler.model, observed):
         warnings.simplefilter("ignore")
         raw = nutpie.sample(compiled, draws=settings.draws, tune=settings.tune,
                             chains=settings.chains, cores=min(settings.cores, settings.chains),

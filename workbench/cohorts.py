@@ -34,7 +34,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
-from workbench import curves, tables
+from workbench import curves, engine, tables
 from workbench.errors import DataError
 from workbench.recipe import (Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic,
                               flag)
@@ -273,12 +273,13 @@ def cumulative_incidence(family, age, scale, shape, share, power=1.0) -> np.ndar
 # --- the story in PyMC ---------------------------------------------------------------
 
 
-def timing_scales(data: Dataset, options: dict, prior, dims: tuple):
+def timing_scales(data: Dataset, options: dict, prior, dims: tuple, counts):
     """Scale of each group (and outcome), pooled as the ``pooling`` option says.
 
     Creates ``scale`` (and ``scale_sd`` / ``scale_offset`` for partial
     pooling) and the deterministic ``scale_group`` with dims
-    ``("group", *dims)``; returns ``scale_group``.
+    ``("group", *dims)``; returns ``scale_group``. Chains start at the ages
+    where the events in the ``counts`` container fell (:func:`event_ages`).
     """
     import pymc as pm
     import pytensor.tensor as pt
@@ -286,13 +287,18 @@ def timing_scales(data: Dataset, options: dict, prior, dims: tuple):
     pooling = data.extra["pooling"]
     n_groups = len(data.labels["group"])
     group_dims = ("group", *dims)
+    typical = event_ages(data, counts)
     if pooling == "complete":
         scale = prior("scale", dims=dims or None)
+        engine.start_at(scale, typical, dims)
         log_group = pt.broadcast_to(pt.log(scale), (n_groups, *pt.shape(scale)))
     elif pooling == "none":
-        log_group = pt.log(prior("scale", dims=group_dims))
+        scale = prior("scale", dims=group_dims)
+        engine.start_at(scale, pt.broadcast_to(typical, (n_groups, *typical.shape)), group_dims)
+        log_group = pt.log(scale)
     else:
         scale = prior("scale", dims=dims or None)  # typical scale across groups
+        engine.start_at(scale, typical, dims)
         spread = prior("scale_sd")  # sd of log scale across groups
         if options.get("centred"):
             log_group = pm.Normal("log_scale_group", pt.log(scale), spread, dims=group_dims)
@@ -300,6 +306,43 @@ def timing_scales(data: Dataset, options: dict, prior, dims: tuple):
             offset = pm.Normal("scale_offset", 0.0, 1.0, dims=group_dims)
             log_group = pt.log(scale) + spread * offset
     return pm.Deterministic("scale_group", pt.exp(log_group), dims=group_dims)
+
+
+# --- starting values ---------------------------------------------------------------
+# Chains start where the data put the timing and the shares, not at the prior's
+# centre: a cohort table whose events all fell before the first look has a
+# minor mode (shape near 0, a flat curve) that chains started far away fall
+# into and do not leave. The starting values are tensors of the ``counts``
+# container, so one compiled model starts every refit at its own data.
+
+# Shares start at least this far inside (0, 1), so that log-odds are finite.
+START_MARGIN = 0.02
+
+
+def observed_shares(data: Dataset, counts):
+    """Pooled share of units with each outcome by their cohort's last age (K,), as a tensor."""
+    k = len(data.extra["outcomes"])
+    events = counts[:, :-1].reshape((counts.shape[0], data.extra["slots"], k)).sum(axis=(0, 1))
+    return events / counts.sum()
+
+
+def event_ages(data: Dataset, counts):
+    """Typical relative age of each outcome's events (K,), as a tensor.
+
+    The count-weighted geometric mean of the mid-ages of the intervals in
+    which the events fell (an interval-censored event counts at the middle of
+    its interval); 1, the reference age, for an outcome without events.
+    """
+    import pytensor.tensor as pt
+
+    k = len(data.extra["outcomes"])
+    age = relative_age(data)
+    before = np.where(data["prev_row"] >= 0, age[np.maximum(data["prev_row"], 0)], 0.0)
+    log_mid = np.zeros((len(data.labels["cohort"]), data.extra["slots"]))
+    log_mid[data["cohort"], data["slot"]] = np.log(np.maximum((age + before) / 2, curves.TINY_TIME))
+    events = counts[:, :-1].reshape((counts.shape[0], data.extra["slots"], k))
+    weighted = (events * log_mid[:, :, None]).sum(axis=(0, 1))
+    return pt.exp(weighted / pt.maximum(events.sum(axis=(0, 1)), 1.0))
 
 
 def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, relax: str | None, prior):
@@ -342,12 +385,18 @@ def cells_tensor(data: Dataset, cumulative):
     return cells / cells.sum(axis=-1, keepdims=True)
 
 
-def cell_likelihood(data: Dataset, p, relax: str | None, prior):
+def counts_container(data: Dataset):
+    """The observed cell counts as the model's ``counts`` container (cohort, cell)."""
+    import pymc as pm
+
+    return pm.Data("counts", cell_counts(data), dims=("cohort", "cell"))
+
+
+def cell_likelihood(data: Dataset, counts, p, relax: str | None, prior):
     """The observed cells ``y``: multinomial per cohort, Dirichlet-multinomial when relaxed."""
     import pymc as pm
     import pytensor.tensor as pt
 
-    counts = pm.Data("counts", cell_counts(data), dims=("cohort", "cell"))
     n = data.extra["cohort_exposed"]
     if relax == "overdispersion":
         rho = prior("overdispersion")

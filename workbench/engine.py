@@ -15,6 +15,8 @@ import os
 import sys
 import time
 import warnings
+import weakref
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping
 
@@ -45,6 +47,32 @@ def seed_stream(seed: int, *names: str) -> dict[str, int]:
     return {name: int(child.generate_state(1, dtype=np.uint32)[0]) for name, child in zip(names, children)}
 
 
+# Where a model's chains start, as its builder asked (start_at): model ->
+# {variable name: tensor of the model's data containers}.
+_STARTS: "weakref.WeakKeyDictionary[Any, dict[str, Any]]" = weakref.WeakKeyDictionary()
+
+
+def start_at(rv, value, dims: tuple = ()) -> None:
+    """Start the chains of ``rv`` near ``value``, a tensor of the model's data containers.
+
+    Call it inside the model's context. Every refit of the compiled model
+    starts at the value for its own data (nutpie still jitters each chain
+    around it). Skipped when the prior in force (which a user may have
+    overridden) has no density there for the data at hand.
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    model = pm.modelcontext(None)
+    value = pt.reshape(value, tuple(len(model.coords[d]) for d in dims))
+    try:
+        allowed = bool(np.all(np.isfinite(pm.logp(rv, value).eval())))
+    except Exception:  # a prior PyMC cannot evaluate there keeps its own start
+        allowed = False
+    if allowed:
+        _STARTS.setdefault(model, {})[rv.name] = value
+
+
 class Sampler:
     """One compiled model; sample it again and again with new observed data."""
 
@@ -54,10 +82,21 @@ class Sampler:
         self.model = model
         with warnings.catch_warnings(), interrupts_kept():
             warnings.simplefilter("ignore")
-            self.compiled = nutpie.compile_pymc_model(model)
+            self.compiled = nutpie.compile_pymc_model(model, initial_points=_STARTS.get(model))
         # shared_data is keyed by opaque ids; the container names sit on the variables.
         self.data_names = {var.name for var in self.compiled.shared_var_keys}
         self.model_data_names = {var.name for var in model.data_vars}
+
+    def with_data(self, observed: Mapping[str, np.ndarray]):
+        """The compiled model with new values in its observed containers."""
+        if not observed:
+            return self.compiled
+        unknown = set(observed) - self.model_data_names
+        if unknown:
+            raise WorkbenchError(f"model has no data container named {sorted(unknown)[0]!r}")
+        # A container the log-density never reads is not part of the compiled model.
+        return self.compiled.with_data(
+            **{k: np.asarray(v) for k, v in observed.items() if k in self.data_names})
 
     def run(
         self,
@@ -78,42 +117,54 @@ class Sampler:
     def _run(self, seed, settings, observed, progress, label) -> xr.DataTree:
         import nutpie
 
-        compiled = self.compiled
-        if observed:
-            unknown = set(observed) - self.model_data_names
-            if unknown:
-                raise WorkbenchError(f"model has no data container named {sorted(unknown)[0]!r}")
-            # A container the log-density never reads is not part of the compiled model.
-            compiled = compiled.with_data(
-                **{k: np.asarray(v) for k, v in observed.items() if k in self.data_names})
+        compiled = self.with_data(observed or {})
         terminal = sys.stderr.isatty()
         lines = _SamplingLines(settings, label) if progress and not terminal else None
         try:
             # Not blocking: nutpie's own wait turns Ctrl-C into a partial trace,
             # which would let an interrupted run go on and write its files.
-            background = nutpie.sample(
-                compiled,
-                draws=settings.draws,
-                tune=settings.tune,
-                chains=settings.chains,
-                cores=min(settings.cores, settings.chains),
-                seed=seed,
-                progress_bar=progress and terminal,
-                progress_callback=lines,
-                save_warmup=False,
-                blocking=False,
-            )
-            try:
-                trace = background.wait()
-            except BaseException:
-                background.cancel()
-                raise
+            with containers_set(self.model, observed or {}):
+                background = nutpie.sample(
+                    compiled,
+                    draws=settings.draws,
+                    tune=settings.tune,
+                    chains=settings.chains,
+                    cores=min(settings.cores, settings.chains),
+                    seed=seed,
+                    progress_bar=progress and terminal,
+                    progress_callback=lines,
+                    save_warmup=False,
+                    blocking=False,
+                )
+                try:
+                    trace = background.wait()
+                except BaseException:
+                    background.cancel()
+                    raise
         finally:
             if lines is not None:
                 lines.bar.close()
         return xr.DataTree.from_dict(
             {"posterior": trace["posterior"].to_dataset(), "sample_stats": trace["sample_stats"].to_dataset()}
         )
+
+
+@contextmanager
+def containers_set(model, observed: Mapping[str, np.ndarray]):
+    """The model's data containers hold ``observed`` inside the block, their old values after.
+
+    nutpie draws each chain's starting point from the PyMC model's containers,
+    not from the data given to the compiled model, and a recipe's starting
+    values may be computed from the data.
+    """
+    import pymc as pm
+
+    saved = {name: model[name].get_value() for name in observed}
+    pm.set_data({k: np.asarray(v) for k, v in observed.items()}, model=model)
+    try:
+        yield
+    finally:
+        pm.set_data(saved, model=model)
 
 
 class _SamplingLines:
