@@ -173,6 +173,7 @@ def bad_plan(tmp_path, body: str):
     ("seeed = 3\n", "unknown key 'seeed'; did you mean 'seed'?"),
     ("[options]\nfamily = \"cauchy\"\n", "option 'family': expected one of"),
     ("[gates\n", "not valid TOML"),
+    ("[sampling]\ntarget_accept = 1.2\n", "[sampling] target_accept: expected a number above 0 and below 1"),
 ])
 def test_bad_plan_exits_2_with_one_line_before_any_fit(tmp_path, capsys, body, message):
     code = main(["audit", str(bad_plan(tmp_path, body)), "--out", str(tmp_path / "out"), "--quiet"])

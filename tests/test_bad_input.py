@@ -57,6 +57,8 @@ def test_bad_table_gives_one_line_and_exit_2(capsys, tmp_path, csv_text, expecte
         ("0.2", ["--prior", "spread=halfnormal(__import__)"], "must be numbers"),
         ("0.2", ["--prior", "spread"], "expected PARAM=DIST(ARGS)"),
         ("0.2", ["--seed", "-4"], "expected a number >= 0"),
+        ("0.2", ["--target-accept", "1.5"], "--target-accept: expected a number above 0 and below 1"),
+        ("0.2", ["--target-accept", "high"], "found 'high'"),
     ],
 )
 def test_bad_option_gives_one_line_and_exit_2(capsys, tmp_path, clearance, extra, expected):

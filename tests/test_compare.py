@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 import shared_runs
-from workbench import plans
+from workbench import engine, plans
 from workbench.compare import SE_MULTIPLE, statement, too_close_to_call
 from workbench.errors import OptionError
 
@@ -112,7 +112,7 @@ def test_result_object_to_dict_equals_the_written_json(compared, doc):
     import workbench
 
     result = workbench.compare([shared_runs.TRUE_DESIGN, shared_runs.WRONG_DESIGN], shared_runs.timing_csv(),
-                               seed=2, relax=False, settings=plans.settings_from(**shared_runs.TIMING_SAMPLING),
+                               seed=2, relax=False, settings=engine.Settings(**shared_runs.TIMING_SAMPLING),
                                cache=shared_runs.cache_folder(), write=False)
     reproduced = result.to_dict()
     assert reproduced["comparison"] == doc["comparison"]
@@ -138,7 +138,7 @@ def test_corrupt_cached_fit_is_detected_refitted_and_gives_the_same_numbers(comp
     victim.write_bytes(bytes(raw))
     with pytest.warns(CorruptFitWarning, match="does not match its recorded SHA-256"):
         result = compare([shared_runs.TRUE_DESIGN, shared_runs.WRONG_DESIGN], shared_runs.timing_csv(),
-                         seed=2, relax=False, settings=plans.settings_from(**shared_runs.TIMING_SAMPLING),
+                         seed=2, relax=False, settings=engine.Settings(**shared_runs.TIMING_SAMPLING),
                          cache=shared_runs.cache_folder(), write=False)
     assert result.to_dict()["comparison"] == doc["comparison"]
     with warnings.catch_warnings():

@@ -17,7 +17,11 @@ from workbench.verdicts import decide
 from recipes.threshold_geometry import RECIPE as THRESHOLD_GEOMETRY
 
 SETTINGS = engine.Settings(draws=500, tune=500)
-# Chosen so that the centred eight-schools fit diverges (it does for most seeds).
+# Eight schools at a target acceptance of 0.9, as a careful modeler samples it:
+# over seeds 1-10 the centred form then diverged at small tau in every fit and
+# the non-centred form ran clean (at 0.8 with 500 draws a few centred fits
+# diverged only once or twice, too rarely to say where).
+SCHOOLS_SETTINGS = engine.Settings(draws=1000, tune=1000, target_accept=0.9)
 SEED = 2
 
 # Eight schools (Rubin 1981; Gelman et al., Bayesian Data Analysis 3rd ed.,
@@ -89,12 +93,12 @@ def hand_fit(posterior: dict[str, np.ndarray], diverging=None, seed=0) -> engine
 
 @pytest.fixture(scope="module")
 def centred_fit():
-    return engine.fit(eight_schools(centred=True), seed=SEED, settings=SETTINGS)
+    return engine.fit(eight_schools(centred=True), seed=SEED, settings=SCHOOLS_SETTINGS)
 
 
 @pytest.fixture(scope="module")
 def non_centred_fit():
-    return engine.fit(eight_schools(centred=False), seed=SEED, settings=SETTINGS)
+    return engine.fit(eight_schools(centred=False), seed=SEED, settings=SCHOOLS_SETTINGS)
 
 
 def test_centred_scale_is_read_from_the_model_graph():

@@ -23,10 +23,12 @@ from workbench.errors import ModelFileError
 
 FILES = Path(__file__).parent / "model_files"
 BROKEN = FILES / "broken"
-SAMPLING = ["--draws", "400", "--tune", "400"]
-# Chosen by trying seeds 1-8 with 4 chains of 400 draws: the centred fit
-# diverges in the funnel (as it does for most seeds) and the non-centred one
-# runs clean (as it does for most seeds).
+# A target acceptance of 0.9, as a careful modeler sets it: the non-centred
+# form then runs clean (at nutpie's default 0.8 a mild curvature makes about
+# 0.07% of its draws diverge; measured over seeds 1-10 with 4 chains of 1000
+# draws: 26 divergent draws at 0.8, 1 at 0.9), while no step size takes the
+# centred form into its funnel.
+SAMPLING = ["--draws", "400", "--tune", "400", "--target-accept", "0.9"]
 SEED = "7"
 # Enough replicates to run calibration end to end in both simulator modes
 # (not to test uniformity: test_calibration.py does that).

@@ -47,3 +47,25 @@ def test_the_null_chance_of_a_nested_gain_above_the_threshold_is_small():
     # satisfy the assumption (Stone 1977: LOO ~ AIC); reference tail from scipy.stats.chi2.
     chance = stats.chi2(1).sf(2 * model_fit.NESTED_GAIN_BROKEN + 2)
     assert chance == pytest.approx(0.0016, abs=0.0002)
+
+
+def funnel(z, quantile):
+    return Finding("computation", "funnel", "computation:funnel", quantile, None, "centred",
+                   {"scale": "tau", "child": "theta", "children": ["theta"], "location": "mu",
+                    "parameter": "tau", "quantile": quantile, "z": z, "direction": "small"})
+
+
+def test_divergences_far_out_at_small_values_of_a_centred_scale_break_computation():
+    judgement = verdicts.judge(funnel(-3.5, 0.05))
+    assert judgement.level == 2 and "non-centred form" in judgement.advice
+
+
+def test_a_few_divergences_at_the_neck_of_a_centred_scale_make_computation_doubtful():
+    # One hypothesis fixed by the model graph: a one-sided 1% test (z <= -2.33).
+    judgement = verdicts.judge(funnel(-2.5, 0.08))
+    assert judgement.level == 1 and "non-centred form" in judgement.advice
+
+
+def test_divergences_that_do_not_crowd_the_neck_say_nothing_about_a_funnel():
+    assert verdicts.judge(funnel(-2.0, 0.15)).level == 0
+    assert verdicts.judge(funnel(-2.6, 0.3)).level == 0

@@ -119,8 +119,7 @@ def check(
         plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
               "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
               "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
-              "sampling": {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains,
-                           "prior_draws": settings.prior_draws}}))
+              "sampling": settings.to_dict()}))
     result = CheckResult(run, doc, folder)
     if write:
         result.files = write_check(result, command)
@@ -300,8 +299,7 @@ def calibrate(
     command = command or (f"workbench calibrate {target} --data {data} --sims {sims} --seed {seed}"
                           + "".join(f" --set {k}={v}" for k, v in (options or {}).items())
                           + "".join(f" --prior {k}={v}" for k, v in (priors or {}).items()))
-    sampling = ({"draws": settings.draws, "tune": settings.tune, "chains": settings.chains}
-                if settings else None)
+    sampling = settings.to_dict() if settings else None
     doc = writers.clean({
         "schema": CALIBRATION_SCHEMA,
         "recipe": design.name,

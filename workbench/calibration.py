@@ -233,10 +233,7 @@ class _Job:
     design: Any
     data: Any
     seed: int
-    draws: int
-    tune: int
-    chains: int
-    cores: int
+    settings: Settings  # per fit; its cores are this process's share
     L: int
     simulator: str
 
@@ -302,7 +299,7 @@ class _Compiled:
         except Exception as err:  # the user's simulator: record, never abort the run
             record["failed"] = f"simulation failed: {type(err).__name__}: {err}"
             return record
-        settings = Settings(draws=job.draws, tune=job.tune, chains=job.chains, cores=job.cores)
+        settings = job.settings
         for fit_seed in (seeds["fit"], seeds["refit"]):
             try:
                 posterior, divergences = _sample_arrays(self.sampler, fit_seed, settings, observed,
@@ -365,6 +362,7 @@ def _sample_arrays(sampler, seed: int, settings: Settings, observed, names):
         warnings.simplefilter("ignore")
         raw = nutpie.sample(compiled, draws=settings.draws, tune=settings.tune,
                             chains=settings.chains, cores=min(settings.cores, settings.chains),
+                            target_accept=settings.target_accept,
                             seed=seed, progress_bar=False, save_warmup=False,
                             return_raw_trace=True)
     draw_batches, stat_batches = raw.get_arrow_trace()
@@ -492,7 +490,7 @@ def _parent_first(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
     calibration thus never waits for processes to start.
     """
     cores = os.cpu_count() or 1
-    alone = replace(job, cores=max(1, min(job.chains, cores)))
+    alone = replace(job, settings=replace(job.settings, cores=max(1, min(job.settings.chains, cores))))
     pending = list(todo)
     yield _replicate_task(alone, pending.pop(0))  # pays for compiling
     timed, started = 0, time.perf_counter()
@@ -884,7 +882,8 @@ def run_calibration(
         "design": _design_label(design),
         "data": _data_digest(data),
         "seed": int(seed),
-        "settings": {"draws": base.draws, "tune": base.tune, "chains": base.chains},
+        "settings": {"draws": base.draws, "tune": base.tune, "chains": base.chains,
+                     "target_accept": base.target_accept},
         "L": L,
         "simulator": simulator,
     }
@@ -893,8 +892,7 @@ def run_calibration(
     # Chains share the cores left over by the other workers; the draws do not
     # depend on the thread count.
     cores = max(1, min(base.chains, (os.cpu_count() or 1) // workers)) if workers == 1 else 1
-    job = _Job(model_key, design, data, int(seed), base.draws, base.tune, base.chains, cores, L,
-               simulator)
+    job = _Job(model_key, design, data, int(seed), replace(base, cores=cores), L, simulator)
 
     checkpoint = Checkpoint(folder, header) if folder is not None else None
     records = checkpoint.open() if checkpoint else {}

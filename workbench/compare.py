@@ -193,7 +193,7 @@ def compare(
     doc = document(checks, labels, plan, settings,
                    manifest(command=command, data_path=plan.data,
                             data_sha256=checks[0].summary["data"]["sha256"], seed=seed,
-                            plan={**plan.to_dict(), "sampling": _sampling(settings)},
+                            plan={**plan.to_dict(), "sampling": settings.to_dict()},
                             started=started))
     result = CompareResult(checks, doc, folder)
     if write:
@@ -221,11 +221,6 @@ def _plan_of(designs, data, seed, relax) -> Plan:
     if relax is not None:
         plan.relax = bool(relax)
     return plan
-
-
-def _sampling(settings: engine.Settings) -> dict:
-    return {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains,
-            "prior_draws": settings.prior_draws}
 
 
 def _api_command(plan: Plan, seed: int) -> str:
@@ -393,7 +388,7 @@ def document(checks, labels, plan: Plan, settings: engine.Settings, run_manifest
         "title": plan.title or "Comparison of " + " and ".join(labels),
         "data": dict(first.summary["data"]),
         "seed": plan.seed,
-        "sampling": _sampling(settings),
+        "sampling": settings.to_dict(),
         "relax": plan.relax,
         "designs": [{"label": label, "target": spec.target, "options": dict(spec.options),
                      "priors": dict(spec.priors), "summary": c.summary}
@@ -479,7 +474,8 @@ def _design_command(doc: dict, entry: dict) -> str:
     parts += [f"--set {k}={v}" for k, v in entry["options"].items()]
     parts += [f"--prior {k}={v}" for k, v in entry["priors"].items()]
     parts += ["--seed", str(doc["seed"]), "--draws", str(s["draws"]), "--tune", str(s["tune"]),
-              "--chains", str(s["chains"])] + ([] if doc["relax"] else ["--no-relax"])
+              "--chains", str(s["chains"]), "--target-accept", str(s["target_accept"])]
+    parts += [] if doc["relax"] else ["--no-relax"]
     return " ".join(parts)
 
 

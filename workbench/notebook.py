@@ -54,8 +54,11 @@ def key_numbers(doc: dict) -> dict:
 
 
 def _settings(sampling: dict) -> str:
-    return (f"Settings(draws={sampling['draws']}, tune={sampling['tune']}, chains={sampling['chains']}, "
-            f"prior_draws={sampling.get('prior_draws', 500)})")
+    """The ``Settings(...)`` call that rebuilds recorded sampling settings (defaults where unrecorded)."""
+    from workbench.engine import Settings
+
+    given = {k: sampling[k] for k in Settings().to_dict() if k in sampling}
+    return "Settings(" + ", ".join(f"{k}={v!r}" for k, v in given.items()) + ")"
 
 
 def _compare_cell(recorded: str) -> nbformat.NotebookNode:
@@ -106,7 +109,7 @@ def for_check(run, summary: dict) -> str:
             f"    options={json.dumps({k: option_text(v) for k, v in design.options.items()})},\n"
             f"    priors={json.dumps(dict(design.priors))},\n"
             f"    seed={run.seed},\n"
-            f"    settings={_settings({'draws': settings.draws, 'tune': settings.tune, 'chains': settings.chains, 'prior_draws': settings.prior_draws})},\n"
+            f"    settings={_settings(settings.to_dict())},\n"
             f"    relax={relax},\n"
             + (f"    sbc={sbc},\n" if sbc else "")
             + "    write=False,\n)\nresult"

@@ -16,6 +16,7 @@ it and get the same numbers::
     draws = 1000
     tune = 1000
     chains = 4
+    target_accept = 0.8
     [gates]                             # audit only; defaults exist for all
     max_rhat = 1.01
     [waivers]                           # audit only: gate name = "written reason"
@@ -45,7 +46,9 @@ from workbench.errors import OptionError
 # Top-level keys a plan may hold; anything else is a typo worth one clear line.
 PLAN_KEYS = ("data", "recipe", "designs", "seed", "sbc", "relax", "options", "priors",
              "sampling", "gates", "waivers", "title")
-SAMPLING_KEYS = ("draws", "tune", "chains", "prior_draws")
+SAMPLING_KEYS = ("draws", "tune", "chains", "prior_draws", "target_accept")
+# The sampling settings the command line can set (``--target-accept`` for target_accept).
+COMMAND_LINE_SAMPLING = ("draws", "tune", "chains", "target_accept")
 
 
 @dataclass
@@ -73,7 +76,7 @@ class Plan:
     seed: int = 1
     sbc: int = 0
     relax: bool = True
-    sampling: dict[str, int] = field(default_factory=dict)
+    sampling: dict[str, int | float] = field(default_factory=dict)
     gates: dict[str, Any] = field(default_factory=dict)
     waivers: dict[str, Any] = field(default_factory=dict)
     title: str = ""
@@ -203,7 +206,10 @@ def plan_from_dict(raw: dict, path: Path | None = None) -> Plan:
             close = get_close_matches(key, SAMPLING_KEYS, n=1)
             hint = f"; did you mean '{close[0]}'?" if close else ""
             raise OptionError(f"{where}: [sampling] has no key '{key}'{hint}")
-        _whole(value, f"{where} [sampling] {key}", minimum=1)
+        if key == "target_accept":
+            _probability(value, f"{where} [sampling] {key}")
+        else:
+            _whole(value, f"{where} [sampling] {key}", minimum=1)
     return Plan(
         path=path,
         data=data,
@@ -269,6 +275,12 @@ def _whole(value, where: str, minimum: int = 0) -> int:
     return value
 
 
+def _probability(value, where: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
+        raise OptionError(f"{where}: expected a number above 0 and below 1; found {value!r}")
+    return float(value)
+
+
 def _flag(value, where: str) -> bool:
     if not isinstance(value, bool):
         raise OptionError(f"{where}: expected true or false; found {value!r}")
@@ -322,17 +334,21 @@ def manifest(*, command: str, data_path, data_sha256: str, seed: int, plan: dict
     }
 
 
-def settings_from(draws: int | None, tune: int | None, chains: int | None, plan: Plan | None = None):
-    """Sampling settings: command-line values over the plan's ``[sampling]`` over a report's defaults."""
+def settings_from(args, plan: Plan | None = None, base=None):
+    """Sampling settings: the command line's over the plan's ``[sampling]`` over ``base``.
+
+    ``args`` holds ``draws``, ``tune``, ``chains`` and ``target_accept``
+    (None where not given); ``base`` defaults to a report's settings.
+    """
     from dataclasses import replace
 
-    base = plan.settings() if plan is not None else None
-    if base is None:
-        from workbench.engine import Settings
+    from workbench.engine import Settings
 
-        base = Settings()
-    given = {k: v for k, v in (("draws", draws), ("tune", tune), ("chains", chains)) if v is not None}
-    settings = replace(base, **given)
+    base = base or Settings()
+    if plan is not None:
+        base = plan.settings(base)
+    given = {k: getattr(args, k, None) for k in COMMAND_LINE_SAMPLING}
+    settings = replace(base, **{k: v for k, v in given.items() if v is not None})
     if settings.chains < 1 or settings.draws < 10:
         raise OptionError(f"--chains must be >= 1 and --draws >= 10; found {settings.chains} and "
                           f"{settings.draws}")

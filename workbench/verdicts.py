@@ -90,13 +90,19 @@ def settle(fn):
     return fn
 
 
+_rules_loaded = False
+
+
 def _load_rules() -> None:
+    """Import every module of :mod:`workbench.rules` once (one imported directly is not all)."""
+    global _rules_loaded
     import workbench.rules as package
 
-    if _RULES and _SETTLERS:
+    if _rules_loaded:
         return
     for info in pkgutil.iter_modules(package.__path__):
         importlib.import_module(f"{package.__name__}.{info.name}")
+    _rules_loaded = True
 
 
 def judge(finding: Finding) -> Judgement:

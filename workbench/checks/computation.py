@@ -80,6 +80,10 @@ SAMPLE_DIMS = ("chain", "draw")
 TOP = 3
 # Below this many divergent draws a median says nothing about where they sit.
 MIN_DIVERGENT_TO_LOCATE = 5
+# The funnel of a centred scale is one hypothesis fixed in advance by the
+# model graph (divergences at small values of that scale), not a scan over
+# every parameter: three divergent draws at its low end already tell.
+MIN_DIVERGENT_FOR_FUNNEL = 3
 # "At an edge" for a (0, 1) variable: within 1% of 0 or 1 (logit beyond +-4.6).
 EDGE = 0.01
 # Chains whose central 90% intervals overlap are said to sit together.
@@ -418,9 +422,9 @@ def _divergence_findings(idata, model, draws: Elements, diverging: np.ndarray) -
     per_chain = diverging.sum(axis=1).astype(int).tolist()
     mask = diverging.ravel()
     located = []
-    if count >= MIN_DIVERGENT_TO_LOCATE and draws.values.shape[-1]:
+    if count >= MIN_DIVERGENT_FOR_FUNNEL and draws.values.shape[-1]:
         located = locate(draws.flat(), mask)
-    top = [_place(draws, row) for row in located[:TOP]]
+    top = [_place(draws, row) for row in located[:TOP]] if count >= MIN_DIVERGENT_TO_LOCATE else []
     scales = centred_scales(model, idata["posterior"].to_dataset())
     findings = [
         _finding(
@@ -431,12 +435,14 @@ def _divergence_findings(idata, model, draws: Elements, diverging: np.ndarray) -
             centred_scales=sorted({item["scale"] for item in scales}),
         )
     ]
-    if count < MIN_DIVERGENT_TO_LOCATE:
+    if count < MIN_DIVERGENT_FOR_FUNNEL:
         return findings
     by_element = {row["element"]: row for row in located}
     funnel = _funnel_finding(scales, draws, by_element)
     if funnel is not None:
         findings.append(funnel)
+    if count < MIN_DIVERGENT_TO_LOCATE:
+        return findings
     edge = _boundary_finding(idata, model, mask)
     if edge is not None:
         findings.append(edge)

@@ -7,7 +7,6 @@ import shlex
 import sys
 import textwrap
 
-from workbench.errors import OptionError
 
 
 def key_value(text: str) -> tuple[str, str]:
@@ -27,6 +26,16 @@ def whole_number(text: str) -> int:
     return value
 
 
+def probability(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number above 0 and below 1; found {text!r}") from None
+    if not 0 < value < 1:
+        raise argparse.ArgumentTypeError(f"expected a number above 0 and below 1; found {text!r}")
+    return value
+
+
 def add_run_arguments(p: argparse.ArgumentParser) -> None:
     """Options every command that fits models shares."""
     p.add_argument("--seed", type=whole_number, default=1, help="seed for every random step (default 1)")
@@ -38,6 +47,9 @@ def add_run_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--draws", type=whole_number, default=1000, help="posterior draws per chain")
     p.add_argument("--tune", type=whole_number, default=1000, help="warm-up draws per chain")
     p.add_argument("--chains", type=whole_number, default=4, help="number of chains")
+    p.add_argument("--target-accept", type=probability, default=None, metavar="RATE",
+                   help="acceptance rate the step size adapts to (default 0.8; 0.9-0.99 for "
+                        "divergences with no pattern)")
 
 
 def add_design_arguments(p: argparse.ArgumentParser) -> None:
@@ -57,14 +69,6 @@ def say(args):
 def show_progress(args) -> bool:
     """Progress of long work unless --quiet: a bar on a terminal, plain lines in logs."""
     return not getattr(args, "quiet", False)
-
-
-def settings(args):
-    from workbench.engine import Settings
-
-    if args.chains < 1 or args.draws < 10:
-        raise OptionError(f"--chains must be >= 1 and --draws >= 10; found {args.chains} and {args.draws}")
-    return Settings(draws=args.draws, tune=args.tune, chains=args.chains)
 
 
 def priors(texts: list[str]) -> dict[str, str]:

@@ -30,13 +30,11 @@ def add_arguments(p) -> None:
 
 
 def run(args) -> int:
-    from dataclasses import replace
-
-    from workbench import api
+    from workbench import api, plans
     from workbench.calibration import CALIBRATION_SETTINGS
 
-    given = {k: getattr(args, k) for k in ("draws", "tune", "chains") if getattr(args, k) is not None}
-    settings = replace(CALIBRATION_SETTINGS, **given) if given else None
+    given = any(getattr(args, k) is not None for k in plans.COMMAND_LINE_SAMPLING)
+    settings = plans.settings_from(args, base=CALIBRATION_SETTINGS) if given else None
     result = api.calibrate(
         args.target, args.data, sims=args.sims, options=dict(args.options),
         priors=common.priors(args.priors), seed=args.seed, workers=args.workers, cluster=args.cluster,

@@ -56,7 +56,7 @@ def run(args) -> int:
     result = api.check(
         target, data, options=options, priors=priors, seed=seed, out=args.out, force=args.force,
         sbc=sbc, workers=args.workers, cluster=args.cluster,
-        settings=plans.settings_from(args.draws, args.tune, args.chains, plan), relax=relax,
+        settings=plans.settings_from(args, plan), relax=relax,
         recipe_folders=args.recipes, say=common.say(args), progress=common.show_progress(args),
         command=common.command_line(), history=args.history or True,
         plan_file=plan.path if plan else None,

@@ -45,7 +45,7 @@ def run(args) -> int:
     plan = plans.read_plan(args.designs[0]) if is_plan else None
     result = compare(
         args.designs[0] if is_plan else args.designs, args.data, seed=args.seed, out=args.out,
-        force=args.force, settings=plans.settings_from(args.draws, args.tune, args.chains, plan),
+        force=args.force, settings=plans.settings_from(args, plan),
         relax=args.relax, workers=args.workers, cache=cache_of(args), history=args.history or True,
         recipe_folders=args.recipes, say=common.say(args), progress=common.show_progress(args),
         command=common.command_line(),

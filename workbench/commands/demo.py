@@ -14,10 +14,10 @@ def add_arguments(p) -> None:
 
 
 def run(args) -> int:
-    from workbench import demo
+    from workbench import demo, plans
 
     result = demo.run(args.recipe, seed=args.seed, out=args.out, force=args.force,
-                      settings=common.settings(args), recipe_folders=args.recipes,
+                      settings=plans.settings_from(args), recipe_folders=args.recipes,
                       say=common.say(args), progress=common.show_progress(args))
     common.print_verdicts(result.summary)
     print(f"data:   {result.run.data_info.path}")
