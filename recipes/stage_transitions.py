@@ -11,10 +11,19 @@ be left out: its probability is zero, which no log-odds prior reaches). Each
 allowed move out of a
 transient stage has a log-odds ``move_logit`` against staying (softmax rows).
 
-Data. The table counts the units of each cohort in each stage at consecutive
-periods; every unit is counted in exactly one stage each period.
+Data, in one of two layouts.
 
-Likelihood (a documented approximation). Units in end stages at one period
+* Stage counts: the units of each cohort in each stage at consecutive
+  periods; every unit is counted in exactly one stage each period.
+* Transition counts (a ``from`` column): each row takes the units of a
+  cohort that were in stage ``from`` at ``period`` and counts, in the stage
+  columns, where they were one period later. Rows a table leaves out hold no
+  units.
+
+Likelihood of transition counts (exact): each row is one multinomial draw
+of its units over the stages of row ``from`` of the matrix.
+
+Likelihood of stage counts (a documented approximation). Units in end stages at one period
 are still there at the next, so only the ``M`` units in transient stages
 (the movers) carry information; their destinations (the transient counts at
 the next period and the increments of the end stages) are what the model
@@ -33,9 +42,15 @@ story's own variance ``sum_i m_i P_ij (1 - P_ij)`` (the deterministic
 ``story_var``), so that data from the story sit at 1 and units that move
 together stand out.
 
-Columns: ``cohort``, ``period`` (whole numbers, consecutive within a cohort),
-one count column per stage (optional ``group``). Options: ``stages``,
-``absorbing``, ``moves``, ``pooling``, ``centred``.
+Both layouts reach the model in one form: per step (a cohort's move from
+one period to the next, or one row of transition counts) the movers of each
+source stage (the ``sources`` container) and their destinations (the
+``counts`` container).
+
+Columns: ``cohort``, ``period`` (whole numbers; consecutive within a cohort
+for stage counts), one count column per stage, optional ``from`` (transition
+counts) and ``group``. Options: ``stages``, ``absorbing``, ``moves``,
+``pooling``, ``centred``.
 
 References
 ----------
@@ -68,7 +83,9 @@ from workbench.recipe import (
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend
 
 NAME = "stage-transitions"
-RESERVED = {"cohort", "period", "group"}
+RESERVED = {"cohort", "period", "group", "from"}
+# The two table layouts (see the module docstring).
+STAGE_COUNTS, TRANSITION_COUNTS = "stage counts", "transition counts"
 
 
 def _name_list(minimum: int):
@@ -154,7 +171,13 @@ def allowed_moves(stages, absorbing, moves) -> np.ndarray:
 
 
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
-    """Check the table: consecutive periods, constant totals, end stages never shrink."""
+    """Check the table once and lay out its steps (see the module docstring for the layouts).
+
+    Stage counts: consecutive periods, constant totals, end stages never
+    shrink. Transition counts: ``from`` names a stage, one row per cohort,
+    period and ``from``, no unit leaves an end stage and none makes a move
+    the design does not allow.
+    """
     stages, absorbing = list(options["stages"]), list(options["absorbing"])
     unknown = [a for a in absorbing if a not in stages]
     if unknown:
@@ -163,6 +186,7 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     if len(absorbing) == len(stages):
         raise OptionError("option 'absorbing': expected at least one stage that is not an end stage; "
                           "found every stage listed")
+    layout = TRANSITION_COUNTS if "from" in table.columns else STAGE_COUNTS
     tables.require_columns(table, ["cohort", "period", *stages], NAME)
     cohort, cohort_labels = tables.label_column(table, "cohort")
     period = tables.numeric_column(table, "period")
@@ -179,9 +203,77 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
         group, group_labels = tables.label_column(table, "group")
     else:
         group, group_labels = np.zeros(len(table), dtype=np.int64), ["all"]
+    end = np.array([name in absorbing for name in stages])
+    allowed = allowed_moves(stages, absorbing, options.get("moves", "forward"))
+    period = period.astype(np.int64)
+    if layout == TRANSITION_COUNTS:
+        source = _stage_codes(table, stages)
+        order, step, start_period = _transition_rows(stages, end, allowed, cohort, cohort_labels, period,
+                                                     source, counts, group, group_labels)
+    else:
+        source = None
+        order, step, start_period = _stage_count_rows(stages, end, cohort, cohort_labels, period, counts,
+                                                      group, group_labels)
+    tables.check_size(len(order), NAME)
+    c, t = cohort[order], period[order]
+    first = _first_period(len(cohort_labels), c, t)  # of each cohort's rows
+    started = _first_period(len(cohort_labels), c[step], start_period)  # of its steps
+    columns = {"cohort": c, "period": t, "group": group[order], "age": t - first[c]}
+    if source is not None:
+        columns["from"] = source[order]
+    for j, name in enumerate(stages):
+        columns[name] = counts[order, j]
+    labels = {"cohort": cohort_labels, "group": group_labels}
+    if source is not None:
+        labels["from"] = stages
+    data = Dataset(columns, labels=labels, source_rows=[[int(i)] for i in order])
+    pooling = options.get("pooling", "auto")
+    if pooling == "auto":
+        pooling = "partial" if len(group_labels) > 1 else "complete"
+    if pooling in {"none", "partial"} and len(group_labels) < 2:
+        raise DataError(f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
+                        f"found {len(group_labels)}")
+    spread = start_period.std()
+    data.extra.update(
+        layout=layout,
+        stages=stages,
+        absorbing=end,
+        allowed=allowed,
+        pooling=pooling,
+        step=step,
+        # Each step's cohort and group, and the cohort's age and period when its units start to move.
+        step_cohort=c[step],
+        step_group=group[order][step],
+        step_age=start_period - started[c[step]],
+        step_period=start_period,
+        # Standardised period of each move, for the drift relaxation.
+        drift_x=(start_period - start_period.mean()) / (spread if spread > 0 else 1.0),
+    )
+    return data
 
+
+def _first_period(n_cohorts: int, cohort: np.ndarray, period: np.ndarray) -> np.ndarray:
+    """Earliest of ``period`` per cohort code (cohorts without any: a large number)."""
+    first = np.full(n_cohorts, np.iinfo(np.int64).max)
+    np.minimum.at(first, cohort, period)
+    return first
+
+
+def _stage_codes(table: pd.DataFrame, stages: list[str]) -> np.ndarray:
+    """The ``from`` column as stage indices."""
+    codes, labels = tables.label_column(table, "from")
+    for code, label in enumerate(labels):
+        if label not in stages:
+            i = int(np.flatnonzero(codes == code)[0])
+            raise DataError(f"column 'from' row {i + 1}: expected one of {', '.join(stages)}; "
+                            f"found {label!r}")
+    return np.array([stages.index(label) for label in labels], dtype=np.int64)[codes]
+
+
+def _stage_count_rows(stages, end, cohort, cohort_labels, period, n, group, group_labels):
+    """Sorted row order, the rows that end a step, and each step's start period (stage counts)."""
     order = np.lexsort((period, cohort))
-    c, t, n, g = cohort[order], period[order].astype(np.int64), counts[order], group[order]
+    c, t, n, g = cohort[order], period[order], n[order], group[order]
     same = c[1:] == c[:-1]
     where = lambda j: int(order[j]) + 1  # noqa: E731  (input row number of sorted row j)
     for j in np.flatnonzero(same):
@@ -200,7 +292,7 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
                             f"row {where(j)} of cohort '{label}'; expected every unit counted in one "
                             f"stage every period")
         for s, name in enumerate(stages):
-            if name in absorbing and n[j + 1, s] < n[j, s]:
+            if end[s] and n[j + 1, s] < n[j, s]:
                 raise DataError(f"column '{name}' row {where(j + 1)}: {n[j + 1, s]} < {n[j, s]} in the "
                                 f"previous period (row {where(j)}); an end stage never loses units")
     empty = np.flatnonzero(n.sum(axis=1) == 0)
@@ -209,36 +301,39 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     if not same.any():
         raise DataError("column 'period': expected at least one cohort seen in two consecutive periods; "
                         "found none")
-    tables.check_size(len(order), NAME)
+    step = np.flatnonzero(np.concatenate([[False], same]))  # rows that have a previous period
+    return order, step, t[step - 1]
 
-    first = np.ones(len(order), dtype=bool)
-    first[1:] = ~same
-    start = np.flatnonzero(first)
-    age = t - np.repeat(t[start], np.diff(np.append(start, len(order))))
-    step = np.flatnonzero(~first)  # rows that have a previous period
-    previous_period = t[step - 1].astype(float)
-    spread = previous_period.std()
-    columns = {"cohort": c, "period": t, "group": g, "age": age}
-    for s, name in enumerate(stages):
-        columns[name] = n[:, s]
-    data = Dataset(columns, labels={"cohort": cohort_labels, "group": group_labels},
-                   source_rows=[[int(i)] for i in order])
-    pooling = options.get("pooling", "auto")
-    if pooling == "auto":
-        pooling = "partial" if len(group_labels) > 1 else "complete"
-    if pooling in {"none", "partial"} and len(group_labels) < 2:
-        raise DataError(f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
-                        f"found {len(group_labels)}")
-    data.extra.update(
-        stages=stages,
-        absorbing=np.array([name in absorbing for name in stages]),
-        allowed=allowed_moves(stages, absorbing, options.get("moves", "forward")),
-        pooling=pooling,
-        step=step,
-        # Standardised period of each move, for the drift relaxation.
-        drift_x=(previous_period - previous_period.mean()) / (spread if spread > 0 else 1.0),
-    )
-    return data
+
+def _transition_rows(stages, end, allowed, cohort, cohort_labels, period, source, n, group, group_labels):
+    """Sorted row order, the rows that are steps, and each step's start period (transition counts)."""
+    order = np.lexsort((source, period, cohort))
+    c, t, f = cohort[order], period[order], source[order]
+    where = lambda j: int(order[j]) + 1  # noqa: E731  (input row number of sorted row j)
+    twin = np.flatnonzero((c[1:] == c[:-1]) & (t[1:] == t[:-1]) & (f[1:] == f[:-1]))
+    if twin.size:
+        j = int(twin[0])
+        raise DataError(f"row {where(j + 1)}: cohort '{cohort_labels[c[j]]}' already has period {t[j]} "
+                        f"from '{stages[f[j]]}' in row {where(j)}; expected one row per cohort, period "
+                        f"and from-stage")
+    _, first_row = np.unique(cohort, return_index=True)
+    other = np.flatnonzero(group != group[first_row][cohort])
+    if other.size:
+        i, j = int(other[0]), int(first_row[cohort[other[0]]])
+        raise DataError(f"column 'group' row {i + 1}: {group_labels[group[i]]!r} differs from "
+                        f"{group_labels[group[j]]!r} in row {j + 1}; expected one group per cohort")
+    moved = np.argwhere((n > 0) & ~allowed[source])
+    if moved.size:
+        i, j = (int(x) for x in moved[0])
+        why = ("an end stage never loses units" if end[source[i]]
+               else "a move the design does not allow (option 'moves')")
+        raise DataError(f"column '{stages[j]}' row {i + 1}: {n[i, j]} unit(s) moved from "
+                        f"'{stages[source[i]]}' to '{stages[j]}', {why}")
+    step = np.flatnonzero(~end[f])
+    if not (n[order][step].sum(axis=1) > 0).any():
+        raise DataError("expected at least one row with units in a stage that is not an end stage; "
+                        "found none")
+    return order, step, t[step]
 
 
 def stage_counts(data: Dataset) -> np.ndarray:
@@ -247,21 +342,53 @@ def stage_counts(data: Dataset) -> np.ndarray:
 
 
 def observed(data: Dataset) -> dict:
-    """The containers: the movers' destinations at each step and the counts before it.
+    """The containers: per step, the movers of each source stage and their destinations.
 
-    Destinations are the counts of transient stages after the move and what
-    each end stage gained; units already in an end stage are not movers.
+    Stage counts: the movers are the units in transient stages before the
+    step, their destinations the transient counts after it and what each end
+    stage gained (units already in an end stage stay put). Transition counts:
+    a row's units all move from its ``from`` stage.
     """
     n = stage_counts(data)
     step = data.extra["step"]
+    if data.extra["layout"] == TRANSITION_COUNTS:
+        counts = n[step]
+        sources = np.zeros_like(counts)
+        sources[np.arange(step.size), data["from"][step]] = counts.sum(axis=1)
+        return {"counts": counts, "sources": sources}
     previous = n[step - 1]
-    held = np.where(data.extra["absorbing"][None, :], previous, 0)
-    return {"counts": n[step] - held, "previous": previous}
+    sources = np.where(data.extra["absorbing"][None, :], 0, previous)
+    return {"counts": n[step] - (previous - sources), "sources": sources}
 
 
 def movers(data: Dataset) -> np.ndarray:
-    """Units in transient stages before each step (steps,)."""
-    return (observed(data)["previous"] * ~data.extra["absorbing"]).sum(axis=1)
+    """Units that move at each step (steps,)."""
+    return observed(data)["sources"].sum(axis=1)
+
+
+def cohort_states(data: Dataset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(cohort, age, stage counts) of every cohort at every period the table shows.
+
+    Transition counts give the transient stages from the ``from`` rows and
+    the end stages as what they gained since the cohort's first period (its
+    units already in an end stage then are not in such a table).
+    """
+    if data.extra["layout"] == STAGE_COUNTS:
+        return data["cohort"], data["age"], stage_counts(data)
+    values = observed(data)
+    sources, counts = values["sources"], values["counts"]
+    cohorts, ages = data.extra["step_cohort"], data.extra["step_age"]
+    end = data.extra["absorbing"]
+    rows = []
+    for c in np.unique(cohorts):
+        mine = cohorts == c
+        for a in np.unique(np.concatenate([ages[mine], ages[mine] + 1])):
+            at, before = mine & (ages == a), mine & (ages == a - 1)
+            transient = sources[at].sum(axis=0) if at.any() else np.where(end, 0, counts[before].sum(axis=0))
+            gained = np.where(end, counts[mine & (ages < a)].sum(axis=0), 0)
+            rows.append((c, a, transient + gained))
+    return (np.array([r[0] for r in rows], dtype=np.int64), np.array([r[1] for r in rows], dtype=np.int64),
+            np.array([r[2] for r in rows], dtype=np.int64))
 
 
 # --- transition matrices ------------------------------------------------------------------
@@ -378,27 +505,25 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pymc as pm
     import pytensor.tensor as pt
 
-    step = data.extra["step"]
     values = observed(data)
-    coords = {"step": np.arange(step.size), "stage": data.extra["stages"], "from": data.extra["stages"],
+    coords = {"step": np.arange(data.extra["step"].size), "stage": data.extra["stages"], "from": data.extra["stages"],
               "to": data.extra["stages"], "group": data.labels["group"], "move": move_labels(data),
               "cohort": data.labels["cohort"]}
     with pm.Model(coords=coords) as model:
         counts = pm.Data("counts", values["counts"], dims=("step", "stage"))
-        previous = pm.Data("previous", values["previous"], dims=("step", "stage"))
+        moving = pm.Data("sources", values["sources"], dims=("step", "stage"))
         matrices = transition_matrices(data, options, prior)
-        per_step = matrices[data["group"][step]]
+        per_step = matrices[data.extra["step_group"]]
         if relax == "stay_drift":
             per_step = _with_drift(data, per_step, prior("stay_drift"))
         elif relax == "dormant":
-            cohort_of_step = data["cohort"][step]
-            first_step = np.unique(cohort_of_step, return_index=True)
+            cohort_of_step, age = data.extra["step_cohort"], data.extra["step_age"]
+            # Each cohort's movers when it is first seen start the dormant forecast.
+            first = np.flatnonzero(age == 0)
             start = pt.zeros((len(data.labels["cohort"]), len(data.extra["stages"])))
-            start = pt.set_subtensor(start[first_step[0]], previous[first_step[1]])
+            start = pt.inc_subtensor(start[cohort_of_step[first]], moving[first])
             start = pt.set_subtensor(start[:, 0], start[:, 0] + pt.eq(start.sum(axis=-1), 0))
-            per_step = _with_dormant(data, matrices, prior("dormant"), start,
-                                     data["age"][step - 1], cohort_of_step)
-        moving = previous * (~data.extra["absorbing"]).astype(float)
+            per_step = _with_dormant(data, matrices, prior("dormant"), start, age, cohort_of_step)
         total = moving.sum(axis=-1, keepdims=True)
         source = moving / pt.maximum(total, 1.0)
         p = (source[:, :, None] * per_step).sum(axis=1)
@@ -431,21 +556,32 @@ def _matrices_of(data: Dataset, params: dict) -> np.ndarray:
 
 
 def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dict) -> Dataset:
-    """Move every unit of every cohort period by period, from the cohort's first counts.
+    """New outcomes for the table's layout: units move independently, one multinomial per stage.
 
-    The units in one stage move independently, so their destinations are one
-    multinomial draw per source stage. ``params`` holds ``transition`` (or
-    ``transition_group``) and may carry ``stay_drift``, ``dormant`` and
-    ``overdispersion`` to plant faults: the stay probability scaled by
-    exp(drift * standardised period), a per-period chance that a transient
-    unit falls silent in its stage for good, and per-period move
-    probabilities shared by a cohort's units (Dirichlet with concentration
-    1 / overdispersion - 1).
+    Stage counts: every cohort moves period by period from its first counts.
+    Transition counts: each row's units move from its ``from`` stage (the
+    rows' unit counts are kept, as the model conditions on them).
+
+    ``params`` holds ``transition`` (or ``transition_group``) and may carry
+    ``stay_drift``, ``dormant`` and ``overdispersion`` to plant faults: the
+    stay probability scaled by exp(drift * standardised period), a
+    per-period chance that a transient unit falls silent in its stage for
+    good, and per-period move probabilities shared by a cohort's units
+    (Dirichlet with concentration 1 / overdispersion - 1).
     """
     matrices = _matrices_of(data, params)
     drift = float(params.get("stay_drift", 0.0))
     dormant = float(params.get("dormant", 0.0))
     rho = float(params.get("overdispersion", 0.0))
+    if data.extra["layout"] == TRANSITION_COUNTS:
+        n = _simulate_rows(rng, data, matrices, drift, dormant, rho)
+    else:
+        n = _simulate_cohorts(rng, data, matrices, drift, dormant, rho)
+    return data.replace(**{name: n[:, j] for j, name in enumerate(data.extra["stages"])})
+
+
+def _simulate_cohorts(rng, data: Dataset, matrices, drift: float, dormant: float, rho: float) -> np.ndarray:
+    """Stage counts of every row, each cohort moved from its first period on."""
     end = data.extra["absorbing"]
     s = len(end)
     n = stage_counts(data).copy()
@@ -455,11 +591,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
         if row not in step_of_row:
             silent[:] = 0  # a cohort's first period: everyone active
             continue
-        m = matrices[data["group"][row]].copy()
-        if drift:
-            f = np.exp(drift * data.extra["drift_x"][step_of_row[row]])
-            m[~end, :] *= np.where(np.eye(s, dtype=bool)[~end], f, 1.0)
-            m /= m.sum(axis=1, keepdims=True)
+        m = _story_matrix(data, matrices, step_of_row[row], drift)
         nxt = np.zeros(s, dtype=np.int64)
         for i in range(s):
             movers = n[row - 1, i] - silent[i]
@@ -469,12 +601,65 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
             fall = rng.binomial(movers, dormant) if dormant > 0 else 0
             silent[i] += fall
             nxt[i] += silent[i]
-            p = m[i]
-            if rho > 0:
-                p = rng.dirichlet(np.maximum(p * (1.0 / rho - 1.0), EPS))
-            nxt += rng.multinomial(movers - fall, p / p.sum())
+            nxt += _destinations(rng, movers - fall, m[i], rho)
         n[row] = nxt
-    return data.replace(**{name: n[:, j] for j, name in enumerate(data.extra["stages"])})
+    return n
+
+
+def _simulate_rows(rng, data: Dataset, matrices, drift: float, dormant: float, rho: float) -> np.ndarray:
+    """Destination counts of every row of transition counts, for its own units."""
+    n = stage_counts(data).copy()
+    sources = observed(data)["sources"]
+    awake = _awake_shares(data, matrices, dormant, sources) if dormant > 0 else np.ones(len(sources))
+    for u, row in enumerate(data.extra["step"]):
+        i = data["from"][row]
+        silent = rng.binomial(sources[u, i], 1.0 - awake[u]) if awake[u] < 1 else 0
+        out = _destinations(rng, sources[u, i] - silent, _story_matrix(data, matrices, u, drift)[i], rho)
+        out[i] += silent
+        n[row] = out
+    return n
+
+
+def _story_matrix(data: Dataset, matrices, u: int, drift: float) -> np.ndarray:
+    """The matrix of step ``u``: its group's, stay probabilities scaled by exp(drift * period)."""
+    end = data.extra["absorbing"]
+    m = matrices[data.extra["step_group"][u]].copy()
+    if drift:
+        f = np.exp(drift * data.extra["drift_x"][u])
+        m[~end, :] *= np.where(np.eye(len(end), dtype=bool)[~end], f, 1.0)
+        m /= m.sum(axis=1, keepdims=True)
+    return m
+
+
+def _destinations(rng, units: int, p: np.ndarray, rho: float) -> np.ndarray:
+    """Where ``units`` leaving one stage end up; with ``rho`` they share one Dirichlet draw of ``p``."""
+    if rho > 0:
+        p = rng.dirichlet(np.maximum(p * (1.0 / rho - 1.0), EPS))
+    return rng.multinomial(units, p / p.sum())
+
+
+def _awake_shares(data: Dataset, matrices, dormant: float, sources: np.ndarray) -> np.ndarray:
+    """Share of each step's units that have not fallen silent, forecast from the cohort's start.
+
+    The NumPy twin of the augmented chain in :func:`_with_dormant`.
+    """
+    end = data.extra["absorbing"]
+    cohorts, ages = data.extra["step_cohort"], data.extra["step_age"]
+    stage_of = sources.argmax(axis=1)
+    out = np.ones(len(cohorts))
+    for c in np.unique(cohorts):
+        mine = np.flatnonzero(cohorts == c)
+        active = sources[mine[ages[mine] == 0]].sum(axis=0).astype(float)
+        silent = np.zeros_like(active)
+        m = matrices[data.extra["step_group"][mine[0]]]
+        for a in range(int(ages[mine].max()) + 1):
+            for u in mine[ages[mine] == a]:
+                total = active[stage_of[u]] + silent[stage_of[u]]
+                out[u] = active[stage_of[u]] / total if total > 0 else 1.0
+            falls = np.where(end, 0.0, active * dormant)
+            silent += falls
+            active = (active - falls) @ m
+    return out
 
 
 # --- absorption --------------------------------------------------------------------------------------
@@ -500,12 +685,13 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
     end = data.extra["absorbing"]
     transient_names = [s for s, e in zip(stages, end) if not e]
     end_names = [s for s, e in zip(stages, end) if e]
-    start = stage_counts(data)[np.setdiff1d(np.arange(data.rows), data.extra["step"])]
+    cohort, age, states = cohort_states(data)
+    start = states[age == 0]
     if "transition" in posterior:
         matrices = {"": (np.asarray(posterior["transition"], dtype=float), start.sum(axis=0))}
     else:
         tg = np.asarray(posterior["transition_group"], dtype=float)
-        first_group = data["group"][np.setdiff1d(np.arange(data.rows), data.extra["step"])]
+        first_group = _cohort_group(data)[cohort[age == 0]]
         matrices = {f" ({label})": (tg[:, g], start[first_group == g].sum(axis=0))
                     for g, label in enumerate(data.labels["group"])}
     out = {}
@@ -536,7 +722,7 @@ def stuck_excess(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     n = movers(data)
     q = p[..., transient].sum(axis=-1)
     y = np.asarray(outcomes["y"], dtype=float)[..., transient].sum(axis=-1)
-    return nearest_shortfall(y, n * q, n * q * (1 - q), -data["age"][data.extra["step"]])
+    return nearest_shortfall(y, n * q, n * q * (1 - q), -data.extra["step_age"])
 
 
 def period_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
@@ -545,14 +731,14 @@ def period_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     transient = ~data.extra["absorbing"]
     y = np.asarray(outcomes["y"], dtype=float)[..., transient]
     s = mean.shape[0]
-    x = np.repeat(data["period"][data.extra["step"]], transient.sum()).astype(float)
+    x = np.repeat(data.extra["step_period"], transient.sum()).astype(float)
     return residual_trend(y.reshape(s, -1), mean[..., transient].reshape(s, -1),
                           var[..., transient].reshape(s, -1), x)
 
 
 def _reachable(data: Dataset) -> np.ndarray:
     """Mask (steps, stages) of the destinations some mover of the step can reach."""
-    moving = observed(data)["previous"] * ~data.extra["absorbing"]
+    moving = observed(data)["sources"]
     return ((moving > 0).astype(int) @ data.extra["allowed"].astype(int)) > 0
 
 
@@ -580,20 +766,19 @@ def figure(data: Dataset, options: dict, posterior: dict, predictive: dict, draw
     from workbench.report.plots import INK
 
     stages = data.extra["stages"]
-    n = stage_counts(data).astype(float)
-    age = data["age"]
-    first = np.setdiff1d(np.arange(data.rows), data.extra["step"])
+    cohort, age, n = cohort_states(data)
+    n = n.astype(float)
+    group_of = _cohort_group(data)
     ages = np.arange(age.max() + 1)
     tg = np.asarray(posterior["transition_group"], dtype=float)
     pick = np.linspace(0, tg.shape[0] - 1, min(draws, tg.shape[0])).astype(int)
     tg = tg[pick]
     fitted = np.zeros((len(pick), ages.size, len(stages)))
     observed_mix = np.zeros((ages.size, len(stages)))
-    for row in first:
-        c = data["cohort"][row]
-        rows = np.flatnonzero(data["cohort"] == c)
+    for row in np.flatnonzero((age == 0) & (n.sum(axis=1) > 0)):
+        rows = np.flatnonzero(cohort == cohort[row])
         share = np.broadcast_to(n[row] / n[row].sum(), (len(pick), len(stages)))
-        m = tg[:, data["group"][row]]
+        m = tg[:, group_of[cohort[row]]]
         for a in range(age[rows].max() + 1):
             fitted[:, a] += n[row].sum() * share
             share = np.einsum("ds,dst->dt", share, m)
@@ -664,13 +849,26 @@ def demo(rng: np.random.Generator) -> DemoScenario:
 # --- assumptions ---------------------------------------------------------------------------------------------
 
 
+def likelihood_note(data: Dataset) -> str:
+    """Why the likelihood only approximates the story on stage counts ('' for transition counts)."""
+    if data.extra["layout"] == TRANSITION_COUNTS:
+        return ""
+    return ("the model uses one multinomial per period where the story sums one multinomial per "
+            "source stage (same means, wider spread), so the log-likelihood of data from the story "
+            "ranks off and the prior predictive spread of the counts is too wide; the parameters' "
+            "ranks and the mean counts test the code and the priors")
+
+
 RECIPE = Recipe(
     name=NAME,
     summary="Units move through ordered stages each period until an end stage holds them.",
     columns=(
         Column("cohort", "label of the cohort (units that entered together)"),
         Column("period", "period number (whole, consecutive within a cohort)"),
-        Column("<stage>", "one column per stage named in 'stages': units in that stage then"),
+        Column("<stage>", "one column per stage named in 'stages': units in that stage then (with "
+                          "'from': where the row's units were one period later)"),
+        Column("from", "optional stage name: the row counts transitions of the units in this stage "
+                       "at 'period' (exact likelihood)", required=False),
         Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
     ),
     options=(STAGES, ABSORBING, MOVES, POOLING, CENTRED),
@@ -739,9 +937,5 @@ RECIPE = Recipe(
     figure=figure,
     derived=derived,
     demo=demo,
-    approximate_likelihood=(
-        "the model uses one multinomial per period where the story sums one multinomial per "
-        "source stage (same means, wider spread), so the log-likelihood of data from the story "
-        "ranks off and the prior predictive spread of the counts is too wide; the parameters' "
-        "ranks and the mean counts test the code and the priors"),
+    approximate_likelihood=likelihood_note,
 )

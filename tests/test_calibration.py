@@ -448,7 +448,12 @@ def test_only_the_log_likelihood_finding_carries_the_approximation(reference):
     assert marked == [sbc.LOG_LIKELIHOOD]
 
 
-def test_stage_transitions_declares_its_approximate_likelihood():
-    # Its likelihood is documented as one multinomial per period (recipes/stage_transitions.py).
-    assert registry.load().get("stage-transitions").approximate_likelihood
-    assert not registry.load().get("threshold-geometry").approximate_likelihood
+def test_stage_transitions_declares_its_approximate_likelihood_on_stage_counts(design_data):
+    # One multinomial per period on stage counts (recipes/stage_transitions.py).
+    from workbench.recipe import likelihood_approximation, make_design
+
+    recipe = registry.load().get("stage-transitions")
+    demo = recipe.demo(np.random.default_rng(1))
+    design = make_design(recipe, demo.options, {})
+    assert likelihood_approximation(design, design.validate(demo.table))
+    assert not likelihood_approximation(*design_data)

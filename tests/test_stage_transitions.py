@@ -8,7 +8,7 @@ import pandas as pd
 import pymc as pm
 import pytest
 
-from recipes.stage_transitions import DEMO_TRUTH, RECIPE, absorption_shares
+from recipes.stage_transitions import DEMO_TRUTH, RECIPE, absorption_shares, cohort_states
 from workbench import engine, registry
 from workbench.errors import DataError, OptionError
 from workbench.recipe import DemoScenario, make_design
@@ -133,8 +133,7 @@ def test_model_expected_shares_are_the_movers_shares_times_the_matrix():
     logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])  # allowed moves against staying, row by row
     model = pm.do(design.build(data), {"move_logit": logits})
     expected, transition = pm.draw([model["expected"], model["transition"]], mode=QUICK)
-    previous = RECIPE.observed(data)["previous"]
-    moving = previous * ~data.extra["absorbing"]
+    moving = RECIPE.observed(data)["sources"]
     np.testing.assert_allclose(transition[:2].sum(axis=1), 1.0)
     np.testing.assert_allclose(expected, moving / moving.sum(axis=1, keepdims=True) @ transition,
                                atol=1e-8)
@@ -143,9 +142,8 @@ def test_model_expected_shares_are_the_movers_shares_times_the_matrix():
 def test_observed_destinations_leave_out_units_already_in_end_stages():
     _, data = validated(small_table())
     values = RECIPE.observed(data)
-    moving = values["previous"] * ~data.extra["absorbing"]
-    np.testing.assert_array_equal(values["counts"].sum(axis=1), moving.sum(axis=1))
-    assert (values["counts"] >= 0).all()
+    np.testing.assert_array_equal(values["counts"].sum(axis=1), values["sources"].sum(axis=1))
+    assert (values["counts"] >= 0).all() and (values["sources"][:, data.extra["absorbing"]] == 0).all()
 
 
 def test_story_variance_is_the_sum_of_one_multinomial_per_source_stage():
@@ -154,7 +152,7 @@ def test_story_variance_is_the_sum_of_one_multinomial_per_source_stage():
     logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])
     model = pm.do(design.build(data), {"move_logit": logits})
     story_var, transition = pm.draw([model["story_var"], model["transition"]], mode=QUICK)
-    moving = RECIPE.observed(data)["previous"] * ~data.extra["absorbing"]
+    moving = RECIPE.observed(data)["sources"]
     np.testing.assert_allclose(story_var, moving @ (transition * (1 - transition)), atol=1e-8)
 
 
@@ -186,7 +184,7 @@ def test_statistic_rises_when_a_fault_is_planted(key, fault):
     def value(extra, seed):
         sim = design.simulate(np.random.default_rng(seed), data, {"transition": TRUE_P, **extra})
         counts = RECIPE.observed(sim)
-        moving = counts["previous"] * ~data.extra["absorbing"]
+        moving = counts["sources"]
         expected = moving / np.maximum(moving.sum(axis=1, keepdims=True), 1) @ TRUE_P
         story_var = moving @ (TRUE_P * (1 - TRUE_P))
         draws = {"expected": expected[None], "story_var": story_var[None]}
@@ -306,3 +304,125 @@ def test_prior_predictive_check_compares_mean_counts_only(fitted):
     design, data, fit = fitted
     checked = [f.check for f in prior_predictive_coverage(Context(design, data, fit, {}, None))]
     assert checked == ["prior_coverage:y:mean"]
+
+
+# --- transition counts: the exact layout -------------------------------------------------------------
+
+
+def transition_table():
+    """The units of small_table() followed move by move: where each stage's units were one period later."""
+    return pd.DataFrame({
+        "cohort": ["A", "A", "A", "B"],
+        "period": [0, 1, 1, 1],
+        "from": ["new", "new", "active", "new"],
+        "new": [50, 20, 0, 40],
+        "active": [35, 25, 20, 28],
+        "done": [0, 0, 15, 0],
+        "dropped": [15, 5, 0, 12],
+    })
+
+
+@pytest.mark.parametrize("change, expected", [
+    (lambda t: t.assign(**{"from": ["old", "new", "active", "new"]}),
+     "column 'from' row 1: expected one of new, active, done, dropped; found 'old'"),
+    (lambda t: t.assign(**{"from": ["new", "new", "new", "new"]}),
+     "row 3: cohort 'A' already has period 1 from 'new' in row 2; expected one row per cohort, "
+     "period and from-stage"),
+    (lambda t: pd.concat([t, pd.DataFrame([{"cohort": "B", "period": 2, "from": "done", "new": 0,
+                                            "active": 0, "done": 3, "dropped": 2}])], ignore_index=True),
+     "column 'dropped' row 5: 2 unit(s) moved from 'done' to 'dropped', an end stage never loses units"),
+    (lambda t: t.assign(active=[35, 25, 20, 28], new=[50, 20, 4, 40]),
+     "column 'new' row 3: 4 unit(s) moved from 'active' to 'new', a move the design does not allow "
+     "(option 'moves')"),
+    (lambda t: t.assign(group=["x", "y", "x", "x"]),
+     "column 'group' row 2: 'y' differs from 'x' in row 1; expected one group per cohort"),
+    (lambda t: t.assign(**{"from": ["done", "dropped", "done", "dropped"], "new": 0, "active": 0,
+                           "done": [5, 0, 5, 0], "dropped": [0, 3, 0, 3]}),
+     "expected at least one row with units in a stage that is not an end stage; found none"),
+])
+def test_bad_transition_counts_give_one_line(change, expected):
+    assert one_line_error(DataError, change(transition_table())) == expected
+
+
+def test_transition_counts_give_the_cohort_states_of_the_stage_counts():
+    _, moves = validated(transition_table())
+    _, stages = validated(small_table())
+    cohort, age, states = cohort_states(moves)
+    expected = {(c, a): tuple(n) for c, a, n in zip(stages["cohort"], stages["age"],
+                                                    np.column_stack([stages[s] for s in STAGES.split(",")]))}
+    assert {(c, a): tuple(n) for c, a, n in zip(cohort, age, states)} == expected
+
+
+def test_transition_counts_likelihood_is_one_multinomial_per_row():
+    # Reference: scipy.stats.multinomial.logpmf of each row's destinations over row 'from' of the matrix.
+    from scipy import stats
+
+    design, data = validated(transition_table())
+    logits = np.array([-0.3, -5.0, -1.2, -0.7, -1.8])
+    model = pm.do(design.build(data), {"move_logit": logits})
+    transition = pm.draw(model["transition"], mode=QUICK)
+    loglik = model.compile_logp(vars=model.observed_RVs, mode=QUICK)({})
+    table = transition_table()
+    stage = {name: i for i, name in enumerate(STAGES.split(","))}
+    expected = sum(stats.multinomial(row[STAGES.split(",")].sum(), transition[stage[row["from"]]]).logpmf(
+        row[STAGES.split(",")].to_numpy(int)) for _, row in table.iterrows())
+    # Impossible moves keep a probability of EPS = 1e-9 in the model (workbench.cohorts).
+    assert loglik == pytest.approx(expected, abs=1e-6)
+    assert not RECIPE.approximate_likelihood(data)
+
+
+def transition_layout(seed=5):
+    """Eight cohorts of 300 followed for ten periods as transition counts, each unit moved by TRUE_P.
+
+    Written out here, apart from the recipe's simulator: every period, the units of each
+    transient stage make one multinomial draw over row TRUE_P[stage].
+    """
+    rng = np.random.default_rng(seed)
+    names = STAGES.split(",")
+    rows = []
+    for c in range(8):
+        n = np.array([300, 0, 0, 0])
+        for t in range(10):
+            after = n * np.array([0, 0, 1, 1])  # end stages keep their units
+            for i in (0, 1):
+                moved = rng.multinomial(n[i], TRUE_P[i])
+                rows.append({"cohort": f"c{c}", "period": c + t, "from": names[i], **dict(zip(names, moved))})
+                after = after + moved
+            n = after
+    return pd.DataFrame(rows)
+
+
+def test_simulated_transition_counts_keep_each_rows_units():
+    design, data = validated(transition_layout())
+    sim = design.simulate(np.random.default_rng(2), data, {"transition": TRUE_P})
+    np.testing.assert_array_equal(RECIPE.observed(sim)["sources"], RECIPE.observed(data)["sources"])
+
+
+def test_dispersion_of_transition_counts_from_the_story_is_about_one():
+    design, data = validated(transition_layout())
+    stat = next(a.statistic for a in RECIPE.assumptions if a.key == "independent_units")
+    values = []
+    for seed in range(5):
+        sim = design.simulate(np.random.default_rng(seed), data, {"transition": TRUE_P})
+        counts = RECIPE.observed(sim)
+        expected = counts["sources"] / np.maximum(counts["sources"].sum(axis=1, keepdims=True), 1) @ TRUE_P
+        draws = {"expected": expected[None], "story_var": (counts["sources"] @ (TRUE_P * (1 - TRUE_P)))[None]}
+        values.append(float(stat.compute(sim, {"y": counts["counts"][None]}, draws)[0]))
+    assert 0.8 < np.mean(values) < 1.2
+
+
+@pytest.mark.slow
+def test_a_check_of_transition_counts_recovers_the_matrix_and_runs_every_check(fast_settings):
+    from workbench import harness
+
+    # The moves TRUE_P makes (forward moves would also allow new > done, which never happens).
+    design, data = validated(transition_layout(), moves="new>active,new>dropped,active>done,active>dropped")
+    run = harness.run_check(design, data, harness.DataInfo("moves", "", data.rows), seed=3,
+                            settings=fast_settings, workers=1)
+    transition = run.fit.draws(["transition"])["transition"]
+    lo, hi = np.percentile(transition, [0.5, 99.5], axis=0)
+    moves = data.extra["allowed"] & ~np.eye(4, dtype=bool)
+    assert np.all((lo[moves] <= TRUE_P[moves]) & (TRUE_P[moves] <= hi[moves]))
+    assert not any(v.verdict == "broken" for v in run.verdicts), [(v.key, v.verdict) for v in run.verdicts]
+    fig = RECIPE.figure(data, design.options, run.fit.draws(), {})
+    assert isinstance(fig, matplotlib.figure.Figure)

@@ -294,7 +294,7 @@ def calibrate(
     folder = calibration_folder(out, design.label(), force) if write else None
     result = run_calibration(design, dataset, sims, seed, workers=workers, cluster=cluster,
                              folder=folder, settings=settings, quiet=quiet)
-    findings = calibration_findings(result, likelihood_approximation(design))
+    findings = calibration_findings(result, likelihood_approximation(design, dataset))
     judged = next(v for v in verdicts.decide([], findings) if v.key == "implementation")
     command = command or (f"workbench calibrate {target} --data {data} --sims {sims} --seed {seed}"
                           + "".join(f" --set {k}={v}" for k, v in (options or {}).items())

@@ -196,10 +196,11 @@ class Recipe:
         (the report then carries the caution).
     approximate_likelihood
         Empty when the model's likelihood is the story's exact law; otherwise
-        why it only approximates it. Calibration then still ranks the
-        log-likelihood but does not count its departure against the model
-        code (data from the exact story are expected to rank off), and the
-        prior predictive check compares mean outcomes only.
+        why it only approximates it (a text, or a function of the dataset
+        giving it, when that depends on the table's layout). Calibration then
+        still ranks the log-likelihood but does not count its departure
+        against the model code (data from the exact story are expected to
+        rank off), and the prior predictive check compares mean outcomes only.
     """
 
     name: str
@@ -219,7 +220,7 @@ class Recipe:
     demo: Callable[..., "DemoScenario"] | None = None
     people_decisions: bool = False
     source: str = ""
-    approximate_likelihood: str = ""
+    approximate_likelihood: str | Callable[["Dataset"], str] = ""
 
     def read_options(self, given: Mapping[str, Any]) -> dict[str, Any]:
         """Parse ``--set`` values against the declared options, filling defaults."""
@@ -345,9 +346,10 @@ class Design:
         return ":".join(parts)
 
 
-def likelihood_approximation(design) -> str:
-    """Why the design's likelihood only approximates its story ('' when it is exact)."""
-    return getattr(getattr(design, "recipe", None), "approximate_likelihood", "") or ""
+def likelihood_approximation(design, data) -> str:
+    """Why the design's likelihood only approximates its story on ``data`` ('' when it is exact)."""
+    note = getattr(getattr(design, "recipe", None), "approximate_likelihood", "") or ""
+    return note(data) if callable(note) else note
 
 
 def _design_from_source(source: str, name: str, options: dict, priors: dict) -> "Design":

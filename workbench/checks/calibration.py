@@ -120,4 +120,4 @@ def calibration(context: Context) -> list[Finding]:
     """Findings for ``implementation`` when a calibration ran; none otherwise."""
     if context.calibration is None:
         return []
-    return calibration_findings(context.calibration, likelihood_approximation(context.design))
+    return calibration_findings(context.calibration, likelihood_approximation(context.design, context.data))

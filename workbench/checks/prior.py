@@ -58,7 +58,7 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
         return []
     prior_pred = fit.draws(group="prior_predictive")
     observed = fit.idata["observed_data"].to_dataset()
-    spread = not likelihood_approximation(context.design)
+    spread = not likelihood_approximation(context.design, context.data)
     findings = []
     for name in observed.data_vars:
         if name not in prior_pred:
