@@ -69,3 +69,20 @@ def test_a_few_divergences_at_the_neck_of_a_centred_scale_make_computation_doubt
 def test_divergences_that_do_not_crowd_the_neck_say_nothing_about_a_funnel():
     assert verdicts.judge(funnel(-2.0, 0.15)).level == 0
     assert verdicts.judge(funnel(-2.6, 0.3)).level == 0
+
+
+def failures(reasons: dict):
+    failed = sum(reasons.values())
+    return Finding("implementation", "calibration_failures", "calibration:failures", failed / 200, None,
+                   "failed", {"failed": failed, "finished": 200, "sims": 200, "reasons": reasons,
+                              "low_ess": 0, "simulator": "recipe"})
+
+
+def test_calibration_fits_that_mostly_diverged_are_told_to_take_smaller_steps():
+    judgement = verdicts.judge(failures({"diverged": 24, "fit failed": 4}))
+    assert judgement.level == 1 and "--target-accept 0.95" in judgement.advice
+
+
+def test_calibration_fits_that_failed_otherwise_are_not_told_to_take_smaller_steps():
+    judgement = verdicts.judge(failures({"fit failed": 24}))
+    assert judgement.level == 1 and "--target-accept" not in judgement.advice

@@ -89,11 +89,14 @@ def calibration_failures(f: Finding) -> Judgement:
     n = f.numbers
     share = f.value if f.value is not None else 1.0
     if n["finished"] == 0 or share > FAILURE_SHARE_DOUBTFUL:
+        diverged = n.get("reasons", {}).get("diverged", 0)
+        steps = (" Most of them diverged: rerun with smaller steps (--target-accept 0.95) before "
+                 "reading the ranks." if diverged * 2 > n["failed"] else "")
         return Judgement(
             1, f"{share:.0%} of the calibration fits failed, so the ranks describe only the "
                f"prior draws the sampler could fit.",
             "Look at the failed replicates' generating values: fits that fail in one region "
-            "of the prior point to a region the model (or the prior) handles badly.",
+            "of the prior point to a region the model (or the prior) handles badly." + steps,
             strength=share)
     if n["failed"]:
         return Judgement(0, f"{n['failed']} of {n['finished']} fits failed; too few to weaken "
