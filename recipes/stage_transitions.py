@@ -80,7 +80,7 @@ from workbench.recipe import (
     Recipe,
     Statistic,
 )
-from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend
+from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend_score
 
 NAME = "stage-transitions"
 RESERVED = {"cohort", "period", "group", "from"}
@@ -726,14 +726,18 @@ def stuck_excess(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 
 
 def period_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
-    """Slope of standardised residuals of transient-stage counts on period."""
+    """Slope of standardised residuals of transient-stage counts on period, over its standard error.
+
+    Scored against the residuals' own scatter, so that units moving in
+    batches (``independent_units``) do not pass for a drift.
+    """
     mean, var, _ = _moments(data, draws)
     transient = ~data.extra["absorbing"]
     y = np.asarray(outcomes["y"], dtype=float)[..., transient]
     s = mean.shape[0]
     x = np.repeat(data.extra["step_period"], transient.sum()).astype(float)
-    return residual_trend(y.reshape(s, -1), mean[..., transient].reshape(s, -1),
-                          var[..., transient].reshape(s, -1), x)
+    return residual_trend_score(y.reshape(s, -1), mean[..., transient].reshape(s, -1),
+                                var[..., transient].reshape(s, -1), x)
 
 
 def _reachable(data: Dataset) -> np.ndarray:
@@ -906,7 +910,8 @@ RECIPE = Recipe(
         Assumption(
             key="time_homogeneity",
             statement="Transition probabilities do not drift with period.",
-            statistic=Statistic("period_trend", "slope of transient-stage residuals on period",
+            statistic=Statistic("period_trend",
+                                "slope of transient-stage residuals on period over its standard error",
                                 period_trend),
             relaxation=relaxation(build_model, "stay_drift", "the stay probabilities may drift with period",
                                   # Planted: stays lengthen by half from one sd of period to the next.

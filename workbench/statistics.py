@@ -41,6 +41,27 @@ def residual_trend(y, mean, var, x) -> np.ndarray:
     return (r * xs).mean(axis=-1)
 
 
+def residual_trend_score(y, mean, var, x) -> np.ndarray:
+    """The slope of :func:`residual_trend` over its standard error from the residuals' own scatter.
+
+    Scale-free: variation beyond the model's (units that move together, say)
+    widens the scatter of the residuals as much as the noise in their slope,
+    so by itself it does not look like a trend; a real trend still does.
+    """
+    r = standardised(y, mean, var)
+    x = np.asarray(x, dtype=float)
+    xs = x - x.mean()
+    scale = np.sqrt((xs**2).mean())
+    n = x.size
+    if scale == 0 or n < 3:
+        return np.zeros(r.shape[:-1])
+    xs = xs / scale
+    slope = (r * xs).mean(axis=-1)
+    rest = r - r.mean(axis=-1, keepdims=True) - slope[..., None] * xs
+    se = np.sqrt((rest**2).sum(axis=-1) / (n - 2) / n)
+    return slope / np.maximum(se, 1e-12)
+
+
 def nearest_shortfall(y, mean, var, x, share: float = 0.25) -> np.ndarray:
     """Standardised sum of residuals over the rows with the smallest ``x``."""
     x = np.asarray(x, dtype=float)
