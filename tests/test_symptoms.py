@@ -70,3 +70,22 @@ def test_the_assumption_whose_relaxation_gains_most_is_the_cause_and_comes_first
                                         relaxation("time_homogeneity", "stay_drift", 12.0), ppc_under])
     assert [v.key for v in judged][:1] == ["no_missing_exit"]
     assert {v.key: v.verdict for v in judged}["time_homogeneity"] == "doubtful"
+
+
+def test_an_alarm_without_a_relaxation_is_a_symptom_when_the_cause_relaxation_removes_it():
+    # E.g. eventual_fraction under eventual=estimate: no expansion applies, only its statistic.
+    statistic = Finding("time_homogeneity", "ppc", "ppc:period_trend", 3.0, 0.0005, "trend", {})
+    under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 0.1, 0.6,
+                    "under", {"relaxation_of": "no_missing_exit"})
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), statistic, under])
+    assert judged["no_missing_exit"].verdict == "broken"
+    assert judged["time_homogeneity"].verdict == "doubtful"
+    assert judged["time_homogeneity"].advice.startswith("Revisit after addressing 'no_missing_exit'")
+
+
+def test_an_alarm_without_a_relaxation_that_remains_under_the_cause_stays_broken():
+    statistic = Finding("time_homogeneity", "ppc", "ppc:period_trend", 3.0, 0.0005, "trend", {})
+    under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 3.0, 0.001,
+                    "under", {"relaxation_of": "no_missing_exit"})
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), statistic, under])
+    assert judged["time_homogeneity"].verdict == "broken"

@@ -109,20 +109,23 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
 
     When assumptions with relaxations look broken, the one whose relaxation
     improves prediction most is taken as the cause. Another broken assumption
-    is a symptom of it when its own relaxation gains less and its targeted
-    statistic looks ordinary under the cause's relaxed model. Broken
+    is a symptom of it when its own relaxation gains less (or it has none) and
+    its targeted statistic looks ordinary under the cause's relaxed model. Broken
     ``computation`` is a symptom when the cause's relaxed model samples
     cleanly. A symptom becomes doubtful with advice to revisit it after
     fixing the cause. So does a broken ``priors`` whose only conflict is a
     posterior beyond its prior draws that the cause's relaxed model removes.
     """
-    broken = [v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None]
-    if not broken:
+    relaxed = [v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None]
+    if not relaxed:
         return
-    cause = max(broken, key=_relaxation_gain)
+    cause = max(relaxed, key=_relaxation_gain)
     cause_gain = _relaxation_gain(cause)
-    for v in broken:
-        if v is cause or _relaxation_gain(v) >= cause_gain:
+    for v in verdicts:
+        # An assumption without a relaxation (or whose expansion does not apply
+        # to these options) is judged by its statistic alone: it gains nothing.
+        gain = _relaxation_gain(v)
+        if v is cause or v.verdict != BROKEN or (gain is not None and gain >= cause_gain):
             continue
         under = [f.p_value for f, _ in v.evidence
                  if f.kind == "ppc_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
