@@ -384,11 +384,13 @@ def cohort_states(data: Dataset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         mine = cohorts == c
         for a in np.unique(np.concatenate([ages[mine], ages[mine] + 1])):
             at, before = mine & (ages == a), mine & (ages == a - 1)
-            transient = sources[at].sum(axis=0) if at.any() else np.where(end, 0, counts[before].sum(axis=0))
+            # Transient stages: the from-rows of this period, else where the last period's units went.
+            transient = (sources[at].sum(axis=0) if at.any()
+                         else np.where(end, 0, counts[before].sum(axis=0)))
             gained = np.where(end, counts[mine & (ages < a)].sum(axis=0), 0)
             rows.append((c, a, transient + gained))
-    return (np.array([r[0] for r in rows], dtype=np.int64), np.array([r[1] for r in rows], dtype=np.int64),
-            np.array([r[2] for r in rows], dtype=np.int64))
+    cohort, age, states = zip(*rows)
+    return np.array(cohort, dtype=np.int64), np.array(age, dtype=np.int64), np.array(states, dtype=np.int64)
 
 
 # --- transition matrices ------------------------------------------------------------------
@@ -506,9 +508,9 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pytensor.tensor as pt
 
     values = observed(data)
-    coords = {"step": np.arange(data.extra["step"].size), "stage": data.extra["stages"], "from": data.extra["stages"],
-              "to": data.extra["stages"], "group": data.labels["group"], "move": move_labels(data),
-              "cohort": data.labels["cohort"]}
+    stages = data.extra["stages"]
+    coords = {"step": np.arange(data.extra["step"].size), "stage": stages, "from": stages, "to": stages,
+              "group": data.labels["group"], "move": move_labels(data), "cohort": data.labels["cohort"]}
     with pm.Model(coords=coords) as model:
         counts = pm.Data("counts", values["counts"], dims=("step", "stage"))
         moving = pm.Data("sources", values["sources"], dims=("step", "stage"))
