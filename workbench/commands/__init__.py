@@ -8,7 +8,6 @@ import sys
 import textwrap
 
 
-
 def key_value(text: str) -> tuple[str, str]:
     key, sep, value = text.partition("=")
     if not sep or not key.strip():

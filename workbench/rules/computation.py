@@ -8,7 +8,7 @@ away from it), divergences in more than 1% of draws, a funnel neck or a
 probability edge where divergences pile up, chains that sit in separate places,
 R-hat above 1.1, or an ESS so small that its own estimate is unreliable.
 Doubtful means the draws are probably usable but a look is warranted: a few
-divergences with no pattern, R-hat between 1.01 and 1.1 with overlapping
+divergences with no pattern or at the small end of a centred scale, R-hat between 1.01 and 1.1 with overlapping
 chains, ESS below 100 per chain, low E-BFMI, tree depth saturation (an
 efficiency warning, never by itself a bias), or a near-flat ridge. How little
 a parameter contracted from its prior is reported but never alarms: weakly
