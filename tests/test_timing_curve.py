@@ -328,3 +328,23 @@ def test_a_prior_override_that_excludes_the_data_start_keeps_its_own_start():
         warnings.simplefilter("ignore")
         fit = engine.fit(model, seed=1, settings=SETTINGS, prior=False)
     assert fit.idata["posterior"]["scale"].min() >= 0.5
+
+
+def test_a_model_compiled_for_one_table_does_not_serve_another_of_the_same_shape(monkeypatch):
+    # Tray sizes enter the model as constants: a second table with the same trays and
+    # looks but other sizes needs its own compiled model.
+    from workbench import harness
+
+    design = make_design(RECIPE, {"family": "weibull", "eventual": "estimate"}, {})
+    first = design.validate(RECIPE.demo(np.random.default_rng(1)).table)
+    second = design.validate(RECIPE.demo(np.random.default_rng(2)).table)
+    assert first.rows == second.rows and not np.array_equal(first["exposed"], second["exposed"])
+    settings = engine.Settings(draws=100, tune=200, chains=2, prior_draws=50)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        monkeypatch.setattr(harness, "_COMPILED", {})
+        alone = harness.fit_design(design, second, 3, settings, prior=False).draws(["eventual"])
+        monkeypatch.setattr(harness, "_COMPILED", {})
+        harness.fit_design(design, first, 3, settings, prior=False)
+        after = harness.fit_design(design, second, 3, settings, prior=False).draws(["eventual"])
+    np.testing.assert_array_equal(after["eventual"], alone["eventual"])

@@ -73,7 +73,27 @@ _COMPILED: dict[tuple, tuple[Any, engine.Sampler]] = {}
 
 
 def _layout(model) -> tuple:
-    return tuple(sorted((v.name, v.get_value().shape, str(v.get_value().dtype)) for v in model.data_vars))
+    """What a compiled model fixes besides the values of its data containers.
+
+    The containers' shapes and every constant of its log-density and
+    deterministics: a recipe may write covariates from the table (ages,
+    cohort sizes) into the graph as constants, and a model compiled for one
+    table must not serve another table of the same shape.
+    """
+    import hashlib
+
+    import numpy as np
+    from pytensor.graph.basic import Constant
+    from pytensor.graph.traversal import ancestors
+
+    digest = hashlib.sha256()
+    for var in ancestors([model.logp(), *model.deterministics]):
+        if isinstance(var, Constant):
+            value = np.asarray(var.data)
+            digest.update(f"{value.dtype}{value.shape}".encode())
+            digest.update(value.tobytes())
+    shapes = tuple(sorted((v.name, v.get_value().shape, str(v.get_value().dtype)) for v in model.data_vars))
+    return shapes, digest.hexdigest()
 
 
 def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=None, **kwargs) -> engine.Fit:
