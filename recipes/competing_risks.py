@@ -119,10 +119,11 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = prior("shape", dims="outcome")
         logit = prior("share_logit", dims="part")
+        # Chains start at the shares the cohorts show (outcomes, then open).
         seen = cohorts.observed_shares(data, counts)
-        parts = pt.concatenate([seen, pt.stack([1.0 - seen.sum()])]) if estimate else seen
-        log_parts = pt.log(pt.maximum(parts, cohorts.START_MARGIN))
-        engine.start_at(logit, log_parts[1:] - log_parts[0], ("part",))
+        seen = pt.concatenate([seen, pt.stack([1.0 - seen.sum()])]) if estimate else seen
+        log_seen = pt.log(pt.maximum(seen, cohorts.START_MARGIN))
+        engine.start_at(logit, log_seen[1:] - log_seen[0], ("part",))
         parts = pt.special.softmax(pt.concatenate([pt.zeros(1), logit]), axis=-1)
         share = parts[:k]
         if estimate:

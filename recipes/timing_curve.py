@@ -96,8 +96,8 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         shape = prior("shape")
         if options["eventual"] == "estimate":
             eventual = prior("eventual")
-            share = cohorts.observed_shares(data, counts)[0]
-            engine.start_at(eventual, pt.clip(share, cohorts.START_MARGIN, 1.0 - cohorts.START_MARGIN))
+            seen = cohorts.observed_shares(data, counts)[0]
+            engine.start_at(eventual, pt.clip(seen, cohorts.START_MARGIN, 1.0 - cohorts.START_MARGIN))
             if relax == "never":
                 # Already relaxed by the estimated eventual share: the
                 # expansion does not apply and stays at its null.

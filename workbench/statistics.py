@@ -29,16 +29,21 @@ def standardised(y, mean, var) -> np.ndarray:
     return np.clip(r, -RESIDUAL_CLIP, RESIDUAL_CLIP)
 
 
-def residual_trend(y, mean, var, x) -> np.ndarray:
-    """Least-squares slope of standardised residuals on standardised ``x``."""
+def _trend(y, mean, var, x):
+    """Standardised residuals, standardised ``x`` (None when constant) and the least-squares slope."""
     r = standardised(y, mean, var)
     x = np.asarray(x, dtype=float)
     xs = x - x.mean()
     scale = np.sqrt((xs**2).mean())
     if scale == 0:
-        return np.zeros(r.shape[:-1])
+        return r, None, np.zeros(r.shape[:-1])
     xs = xs / scale
-    return (r * xs).mean(axis=-1)
+    return r, xs, (r * xs).mean(axis=-1)
+
+
+def residual_trend(y, mean, var, x) -> np.ndarray:
+    """Least-squares slope of standardised residuals on standardised ``x``."""
+    return _trend(y, mean, var, x)[2]
 
 
 def residual_trend_score(y, mean, var, x) -> np.ndarray:
@@ -48,15 +53,10 @@ def residual_trend_score(y, mean, var, x) -> np.ndarray:
     widens the scatter of the residuals as much as the noise in their slope,
     so by itself it does not look like a trend; a real trend still does.
     """
-    r = standardised(y, mean, var)
-    x = np.asarray(x, dtype=float)
-    xs = x - x.mean()
-    scale = np.sqrt((xs**2).mean())
-    n = x.size
-    if scale == 0 or n < 3:
+    r, xs, slope = _trend(y, mean, var, x)
+    n = r.shape[-1]
+    if xs is None or n < 3:
         return np.zeros(r.shape[:-1])
-    xs = xs / scale
-    slope = (r * xs).mean(axis=-1)
     rest = r - r.mean(axis=-1, keepdims=True) - slope[..., None] * xs
     se = np.sqrt((rest**2).sum(axis=-1) / (n - 2) / n)
     return slope / np.maximum(se, 1e-12)
