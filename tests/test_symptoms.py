@@ -72,20 +72,21 @@ def test_the_assumption_whose_relaxation_gains_most_is_the_cause_and_comes_first
     assert {v.key: v.verdict for v in judged}["time_homogeneity"] == "doubtful"
 
 
+def statistic_only(p_under_cause: float) -> dict:
+    """Verdicts when time_homogeneity has only its statistic (p = 0.0005) and the cause is no_missing_exit."""
+    statistic = Finding("time_homogeneity", "ppc", "ppc:period_trend", 3.0, 0.0005, "trend", {})
+    under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 0.1,
+                    p_under_cause, "under", {"relaxation_of": "no_missing_exit"})
+    return by_key([relaxation("no_missing_exit", "dormant", 40.0), statistic, under])
+
+
 def test_an_alarm_without_a_relaxation_is_a_symptom_when_the_cause_relaxation_removes_it():
     # E.g. eventual_fraction under eventual=estimate: no expansion applies, only its statistic.
-    statistic = Finding("time_homogeneity", "ppc", "ppc:period_trend", 3.0, 0.0005, "trend", {})
-    under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 0.1, 0.6,
-                    "under", {"relaxation_of": "no_missing_exit"})
-    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), statistic, under])
+    judged = statistic_only(p_under_cause=0.6)
     assert judged["no_missing_exit"].verdict == "broken"
     assert judged["time_homogeneity"].verdict == "doubtful"
     assert judged["time_homogeneity"].advice.startswith("Revisit after addressing 'no_missing_exit'")
 
 
 def test_an_alarm_without_a_relaxation_that_remains_under_the_cause_stays_broken():
-    statistic = Finding("time_homogeneity", "ppc", "ppc:period_trend", 3.0, 0.0005, "trend", {})
-    under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 3.0, 0.001,
-                    "under", {"relaxation_of": "no_missing_exit"})
-    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), statistic, under])
-    assert judged["time_homogeneity"].verdict == "broken"
+    assert statistic_only(p_under_cause=0.001)["time_homogeneity"].verdict == "broken"
