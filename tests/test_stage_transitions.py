@@ -173,6 +173,16 @@ def test_simulated_means_follow_powers_of_the_matrix():
     assert np.all(np.abs(total / reps - mean) <= 4 * se + 1e-9)
 
 
+def at_true_matrix(stat, data) -> float:
+    """A targeted statistic of ``data`` with the model's draws replaced by TRUE_P's moments."""
+    counts = RECIPE.observed(data)
+    moving = counts["sources"]
+    expected = moving / np.maximum(moving.sum(axis=1, keepdims=True), 1) @ TRUE_P
+    story_var = moving @ (TRUE_P * (1 - TRUE_P))
+    draws = {"expected": expected[None], "story_var": story_var[None]}
+    return float(stat.compute(data, {"y": counts["counts"][None]}, draws)[0])
+
+
 @pytest.mark.parametrize("key,fault", [("no_missing_exit", {"dormant": 0.1}),
                                        ("independent_units", {"overdispersion": 0.1})])
 def test_statistic_rises_when_a_fault_is_planted(key, fault):
@@ -183,12 +193,7 @@ def test_statistic_rises_when_a_fault_is_planted(key, fault):
 
     def value(extra, seed):
         sim = design.simulate(np.random.default_rng(seed), data, {"transition": TRUE_P, **extra})
-        counts = RECIPE.observed(sim)
-        moving = counts["sources"]
-        expected = moving / np.maximum(moving.sum(axis=1, keepdims=True), 1) @ TRUE_P
-        story_var = moving @ (TRUE_P * (1 - TRUE_P))
-        draws = {"expected": expected[None], "story_var": story_var[None]}
-        return float(stat.compute(sim, {"y": counts["counts"][None]}, draws)[0])
+        return at_true_matrix(stat, sim)
 
     clean = np.mean([value({}, s) for s in range(3)])
     faulty = np.mean([value(fault, s) for s in range(3)])
@@ -404,10 +409,7 @@ def test_dispersion_of_transition_counts_from_the_story_is_about_one():
     values = []
     for seed in range(5):
         sim = design.simulate(np.random.default_rng(seed), data, {"transition": TRUE_P})
-        counts = RECIPE.observed(sim)
-        expected = counts["sources"] / np.maximum(counts["sources"].sum(axis=1, keepdims=True), 1) @ TRUE_P
-        draws = {"expected": expected[None], "story_var": (counts["sources"] @ (TRUE_P * (1 - TRUE_P)))[None]}
-        values.append(float(stat.compute(sim, {"y": counts["counts"][None]}, draws)[0]))
+        values.append(at_true_matrix(stat, sim))
     assert 0.8 < np.mean(values) < 1.2
 
 
