@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 
 from workbench import calibration as sbc
-from workbench import registry, verdicts
+from workbench import executor, registry, verdicts
 from workbench.checks.calibration import calibration_findings
 from workbench.engine import Settings
 from workbench.errors import OptionError, OutputError
@@ -194,7 +194,7 @@ def test_default_executor_runs_a_short_calibration_in_this_process(design_data, 
 def test_default_executor_adds_helpers_when_the_work_left_pays_for_them(design_data, reference,
                                                                         monkeypatch, tmp_path):
     # Any work left is worth a helper here, so the parent works beside one worker process.
-    monkeypatch.setattr(sbc, "HELPERS_WORTH_SECONDS", 0.0)
+    monkeypatch.setattr(executor, "HELPERS_WORTH_SECONDS", 0.0)
     monkeypatch.setattr(sbc.os, "cpu_count", lambda: 2)
     pools = []
     original = sbc._local_pool

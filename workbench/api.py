@@ -100,35 +100,39 @@ def check(
     dataset, info = load_data(design, data)
     if sbc and hasattr(design, "check_simulator"):
         design.check_simulator(dataset)  # a model file's story: one clear line before any fit
+    created = not (out and Path(out).exists())
     folder = writers.run_folder(str(out) if out else None, design.label(), force) if write else None
-    settings = settings or engine.Settings()
-    calibrate = None
-    if sbc:
-        from workbench.calibration import run_calibration
+    # A run that fails leaves no empty folder behind, and library warnings
+    # go to the run's warnings.log instead of the terminal.
+    with writers.kept_unless_empty(folder, created), writers.warnings_logged(folder):
+        settings = settings or engine.Settings()
+        calibrate = None
+        if sbc:
+            from workbench.calibration import run_calibration
 
-        def calibrate():
-            return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
-                                   folder=folder, quiet=not progress)
-    command = command or _api_command(target, data, options, priors, seed, sbc)
-    run = harness.run_check(design, dataset, info, seed, settings, relax=relax, workers=workers,
-                            calibrate=calibrate, say=say, progress=progress,
-                            fitter=fitter_for(cache, info.sha256))
-    doc = writers.summary(run)
-    doc["manifest"] = writers.clean(plans.manifest(
-        command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=run.started,
-        plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
-              "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
-              "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
-              "sampling": settings.to_dict()}))
-    result = CheckResult(run, doc, folder)
-    if write:
-        result.files = write_check(result, command)
-        if history:
-            from workbench import history as run_history
+            def calibrate():
+                return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
+                                       folder=folder, quiet=not progress)
+        command = command or _api_command(target, data, options, priors, seed, sbc)
+        run = harness.run_check(design, dataset, info, seed, settings, relax=relax, workers=workers,
+                                calibrate=calibrate, say=say, progress=progress,
+                                fitter=fitter_for(cache, info.sha256))
+        doc = writers.summary(run)
+        doc["manifest"] = writers.clean(plans.manifest(
+            command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=run.started,
+            plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
+                  "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
+                  "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
+                  "sampling": settings.to_dict()}))
+        result = CheckResult(run, doc, folder)
+        if write:
+            result.files = write_check(result, command)
+            if history:
+                from workbench import history as run_history
 
-            run_history.record(history_path(history), run_history.check_entry(
-                "check", run.design, doc, result.files["report"]))
-    return result
+                run_history.record(history_path(history), run_history.check_entry(
+                    "check", run.design, doc, result.files["report"]))
+        return result
 
 
 def fitter_for(cache: bool | str | Path | None, data_sha256: str):

@@ -56,12 +56,12 @@ import time
 import uuid
 import warnings
 from dataclasses import dataclass, field, replace
-from multiprocessing import get_context
 from pathlib import Path
 from typing import Any, Iterable, Iterator
 
 import numpy as np
 
+from workbench import executor
 from workbench.engine import Settings
 from workbench.errors import ModelFileError, OptionError, OutputError, WorkbenchError
 from workbench.progress import Progress
@@ -84,11 +84,8 @@ ESS_RETRY_FACTOR = 4
 MAX_WORKER_LOSSES = 3
 # With the default number of workers the parent process starts alone (it
 # compiles once and runs replicates at once) and starts helper processes only
-# when the work it measured left for itself exceeds this many seconds: a
-# helper spends about 10-20 s of a core importing and compiling before its
-# first replicate (benchmarks/calibration_speed.py: 18 s for two on 2 cores),
-# so helpers pay off only for work of at least twice that.
-HELPERS_WORTH_SECONDS = 40.0
+# when the work it measured left for itself is worth it
+# (workbench.executor.helpers_pay).
 # Replicates the parent times (after the first, which includes compiling)
 # before it decides whether to start helpers; it decides earlier once this
 # many seconds have passed.
@@ -486,7 +483,7 @@ def _parent_first(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
     The parent compiles once and starts at once, with every core for its
     chains; after timing a few replicates it hands the rest to ``workers - 1``
     helper processes and keeps working beside them when the remaining work
-    exceeds :data:`HELPERS_WORTH_SECONDS`, and otherwise finishes alone. A short
+    exceeds :data:`workbench.executor.HELPERS_WORTH_SECONDS`, and otherwise finishes alone. A short
     calibration thus never waits for processes to start.
     """
     cores = os.cpu_count() or 1
@@ -500,7 +497,7 @@ def _parent_first(job: _Job, todo: list[int], workers: int) -> Iterator[dict]:
     if not pending:
         return
     each = (time.perf_counter() - started) / max(timed, 1)
-    if workers > 1 and each * len(pending) > HELPERS_WORTH_SECONDS:
+    if executor.helpers_pay(each * len(pending), workers):
         # run_calibration already gave ``job`` one core per process for several workers.
         yield from _local_pool(job, pending, workers - 1, parent_works=True)
     else:
@@ -557,8 +554,7 @@ def _local_pool(job: _Job, todo: list[int], workers: int, parent_works: bool = F
     from collections import deque
     from multiprocessing.connection import wait as wait_for
 
-    # "spawn" avoids forking a parent that may already run sampler threads.
-    context = get_context("spawn")
+    context = executor.spawn_context()
     pending = deque(todo)
     losses: dict[int, int] = {}
     live: dict[Any, _Worker] = {}
@@ -567,7 +563,8 @@ def _local_pool(job: _Job, todo: list[int], workers: int, parent_works: bool = F
     def start() -> None:
         parent, child = context.Pipe()
         process = context.Process(target=_worker_main, args=(child, job), daemon=True)
-        process.start()
+        with executor.user_script_hidden():
+            process.start()
         child.close()
         live[parent] = _Worker(process)
 
@@ -827,7 +824,7 @@ def run_calibration(
         Local worker processes; 1 runs in this process. By default this
         process starts alone and adds helpers up to the machine's cores when
         the work it measured is long enough to pay for their start-up
-        (:data:`HELPERS_WORTH_SECONDS`). Ignored when ``cluster`` is given.
+        (:data:`workbench.executor.HELPERS_WORTH_SECONDS`). Ignored when ``cluster`` is given.
     cluster : str or distributed cluster/Client, optional
         A Dask scheduler address (``"tcp://host:8786"``) to send replicates to.
     folder : path, optional

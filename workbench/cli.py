@@ -12,6 +12,7 @@ import argparse
 import importlib
 import pkgutil
 import sys
+import warnings
 
 from workbench import interrupts
 from workbench.errors import OptionError, WorkbenchError
@@ -59,7 +60,10 @@ def main(argv: list[str] | None = None, last: bool = False) -> int:
         if args.command is None:
             parser.print_help()
             return 2
-        with interrupts.watched(last):
+        # Library warnings stay off the terminal (a check keeps them in its
+        # run folder's warnings.log).
+        with interrupts.watched(last), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
             code = commands()[args.command].run(args)
             interrupts.raise_if_interrupted()
         return code

@@ -90,9 +90,11 @@ class Sampler:
         import nutpie
 
         self.model = model
+        start = time.perf_counter()
         with warnings.catch_warnings(), interrupts_kept():
             warnings.simplefilter("ignore")
             self.compiled = nutpie.compile_pymc_model(model, initial_points=_STARTS.get(model))
+        self.compile_seconds = time.perf_counter() - start
         # shared_data is keyed by opaque ids; the container names sit on the variables.
         self.data_names = {var.name for var in self.compiled.shared_var_keys}
         self.model_data_names = {var.name for var in model.data_vars}

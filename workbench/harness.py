@@ -11,14 +11,13 @@ import platform
 import sys
 import time
 import warnings
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import as_completed
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from importlib import metadata
-from multiprocessing import get_context
 from typing import Any, Callable
 
-from workbench import checks, engine, interrupts, verdicts
+from workbench import checks, engine, executor, interrupts, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -119,24 +118,42 @@ def _fit_relaxed(design, data, parameter: str, seed: int, settings: engine.Setti
     return result.idata, result.seconds
 
 
-def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
-                    say: Callable[[str], None], fitter=None, progress: bool = False
-                    ) -> dict[str, engine.Fit]:
-    """Fit every declared relaxation, in parallel worker processes.
+def relaxation_workers(fits: int, settings: engine.Settings, main: engine.Fit | None) -> int:
+    """Processes for ``fits`` relaxed models by default: helpers only when they pay.
 
-    Each expanded model is compiled once in its worker. With ``workers=1``
-    they run in this process and reuse its compiled models (the fast path for
-    many runs of one design). Seeds derive from the run seed and the
-    parameter name, so results do not depend on scheduling. ``progress``
-    counts finished models on standard error (a bar on a terminal, plain
-    lines elsewhere).
+    A relaxed model costs about what the base model cost (one more
+    parameter); the base fit's compile and sampling seconds feed the rule in
+    :func:`workbench.executor.fits_worth_helpers`. A fit served from a cache
+    measured nothing here, and its relaxations are likely cached too.
+    """
+    compile_seconds = getattr(getattr(main, "sampler", None), "compile_seconds", None)
+    if compile_seconds is None:
+        return 1
+    # The fit's seconds count sampling and predictive draws, not compiling.
+    return executor.fits_worth_helpers(fits, compile_seconds, main.seconds, settings.chains)
+
+
+def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
+                    say: Callable[[str], None], fitter=None, progress: bool = False,
+                    main: engine.Fit | None = None) -> dict[str, engine.Fit]:
+    """Fit every declared relaxation, in this process or in helper processes.
+
+    ``workers=None`` chooses by :func:`relaxation_workers` from the base fit
+    ``main``: on a small machine and a small model this process alone is the
+    fast path, reusing its compiled models. ``workers=N`` asks for N
+    processes (1: this one). Each expanded model is compiled once where it
+    runs. Seeds derive from the run seed and the parameter name, so results
+    do not depend on scheduling. ``progress`` counts finished models on
+    standard error (a bar on a terminal, plain lines elsewhere).
     """
     names = list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
                                if a.relaxation is not None and a.relaxation.applies_to(design.options)))
     if not names:
         return {}
     seeds = engine.seed_stream(seed, *[f"relax:{n}" for n in names])
-    workers = max(1, min(len(names), workers or os.cpu_count() or 1))
+    if workers is None:
+        workers = relaxation_workers(len(names), settings, main)
+    workers = max(1, min(len(names), workers))
     if workers == 1:
         say(f"fitting {len(names)} relaxed model(s) in this process")
         out = {}
@@ -148,13 +165,13 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
         return out
     say(f"fitting {len(names)} relaxed model(s) on {workers} process(es)")
     # Threads would share one interpreter lock and PyTensor's compile lock;
-    # separate processes compile in parallel. "spawn" avoids forking a process
-    # that already runs sampler threads.
+    # separate processes compile in parallel.
     done = {}
-    with ProcessPoolExecutor(workers, mp_context=get_context("spawn")) as pool, \
+    with executor.process_pool(workers) as pool, \
             Progress(len(names), "relaxed models", quiet=not progress) as bar:
-        futures = {pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings, fitter): n
-                   for n in names}
+        with executor.user_script_hidden():
+            futures = {pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings,
+                                   fitter): n for n in names}
         for future in as_completed(futures):
             idata, seconds = future.result()
             n = futures[future]
@@ -187,7 +204,7 @@ def run_check(
     main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
                                   label=design.name, say=say)
     relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
-                              fitter, progress) if relax else {}
+                              fitter, progress, main) if relax else {}
     calibration = calibrate() if calibrate else None
     context = checks.Context(design, data, main, relaxed, calibration)
     interrupts.raise_if_interrupted()

@@ -333,9 +333,12 @@ class Design:
         return self.recipe.simulate(rng, data, params, self.options)
 
     def __reduce__(self):
-        # Recipes hold functions of modules loaded by path; a worker process
-        # rebuilds the design by loading the same file.
-        return (_design_from_source, (self.recipe.source, self.recipe.name, self.options, self.priors))
+        # Recipes hold functions and option values of modules loaded by path
+        # under private names that another process cannot import: a worker
+        # rebuilds the design from plain data (the file, the recipe's name and
+        # the options as the user types them).
+        options = {k: option_text(v) for k, v in self.options.items() if v is not None}
+        return (_design_from_source, (self.recipe.source, self.recipe.name, options, dict(self.priors)))
 
     def label(self) -> str:
         """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
@@ -355,7 +358,8 @@ def likelihood_approximation(design, data) -> str:
 def _design_from_source(source: str, name: str, options: dict, priors: dict) -> "Design":
     from workbench.registry import recipe_from_file
 
-    return Design(recipe_from_file(source, name), options, priors)
+    recipe = recipe_from_file(source, name)
+    return Design(recipe, recipe.read_options(options), priors)
 
 
 def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str, str]) -> Design:

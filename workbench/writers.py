@@ -12,9 +12,11 @@ import math
 import os
 import re
 import tempfile
+import warnings
+from contextlib import contextmanager
 from datetime import datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
 from workbench.errors import OutputError
 from workbench.interrupts import raise_if_interrupted
@@ -92,6 +94,48 @@ def run_folder(out: str | None, label: str, force: bool, root: str | Path = "rep
     except OSError as err:
         raise OutputError(f"output folder {str(folder)!r}: cannot create it ({err.strerror})") from None
     return folder
+
+
+# Files a failed run keeps in a folder it created: a calibration checkpoint
+# resumes the same command where it stopped.
+KEPT_AFTER_FAILURE = ("calibration.jsonl",)
+WARNINGS_LOG = "warnings.log"
+
+
+@contextmanager
+def kept_unless_empty(folder: Path | None, created: bool = True) -> Iterator[None]:
+    """On failure, remove what this run wrote into the ``folder`` it ``created``.
+
+    A calibration checkpoint stays (rerunning the command continues from it);
+    a folder left with nothing is removed, so a failed run leaves no empty or
+    half-made run folder behind.
+    """
+    try:
+        yield
+    except BaseException:
+        if folder is not None and created and folder.is_dir():
+            for item in folder.iterdir():
+                if item.name not in KEPT_AFTER_FAILURE and item.is_file():
+                    item.unlink(missing_ok=True)
+            if not any(folder.iterdir()):
+                folder.rmdir()
+        raise
+
+
+@contextmanager
+def warnings_logged(folder: Path | None) -> Iterator[None]:
+    """Keep library warnings off the terminal; write them to the run's warnings.log.
+
+    Without a folder (``write=False``) they are dropped: the run's numbers
+    carry what matters (a NaN R-hat of a constant, say, is reported as such).
+    """
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield
+    if folder is not None and caught and folder.is_dir():
+        lines = sorted({f"{w.category.__name__}: {w.message} ({Path(w.filename).name}:{w.lineno})"
+                        for w in caught})
+        atomic_write(folder / WARNINGS_LOG, "\n".join(lines) + "\n")
 
 
 # --- summary.json --------------------------------------------------------------
