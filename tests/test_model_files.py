@@ -234,7 +234,7 @@ def test_missing_observed_value_names_variable_column_and_row(tmp_path, capsys):
                  "--out", str(tmp_path / "run")])
     err = capsys.readouterr().err.strip()
     assert code == 2 and len(err.splitlines()) == 1
-    assert "observes 'y' with missing values (NaN); column 'y' is empty at row(s) 4" in err
+    assert "observes 'y' with missing values (NaN); column 'y' is empty at row 4 (line 5)" in err
 
 
 @pytest.mark.parametrize("flag", [["--set", "clearance=0.3"], ["--prior", "mu=normal(0,1)"]])

@@ -51,6 +51,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from workbench import tables
 from workbench.errors import ModelFileError, OptionError, WorkbenchError
 from workbench.findings import GENERIC_ASSUMPTIONS
 from workbench.recipe import Assumption, Relaxation, Statistic
@@ -649,8 +650,8 @@ def _missing_message(path: Path, warning: str, frame: pd.DataFrame, what: str) -
     column = name if name in empty else (empty[0] if len(empty) == 1 else None)
     where = ""
     if column is not None:
-        rows = np.flatnonzero(frame[column].isna().to_numpy()) + 1
-        where = f"; column '{column}' is empty at row(s) {_rows(rows)}"
+        empty_rows = np.flatnonzero(frame[column].isna().to_numpy())
+        where = f"; column '{column}' is empty at {tables.rows(empty_rows, ROWS_SHOWN)}"
     return (f"{path}: {what} observes '{name}' with missing values (NaN){where}; expected "
             f"every observed value (drop or fill those rows of the table)")
 

@@ -1,8 +1,10 @@
 """Reading tables and validating columns at the boundary.
 
 Messages say what was expected, what was found and where, e.g.
-``column 'successes' row 7: 212 > attempts 200``. Rows are numbered from 1 in
-the order of the input table (the header is not a row).
+``column 'successes' row 7 (line 8): 212 > attempts 200``. Rows are numbered
+from 1 in the order of the input table (the header is not a row); the line is
+where a CSV file holds the row (the header on line 1, one line per row).
+Every data message names a row through :func:`row`.
 """
 
 from __future__ import annotations
@@ -23,6 +25,18 @@ from workbench.errors import DataError
 MAX_MODEL_ROWS = 5_000
 # Counts are read as float64, which holds whole numbers exactly only up to 2^53.
 MAX_COUNT = 2**53
+
+
+def row(index: int) -> str:
+    """How a message names the data row at 0-based position ``index``."""
+    return f"row {index + 1} (line {index + 2})"
+
+
+def rows(indices: Iterable[int], shown: int = 5) -> str:
+    """Several data rows (0-based positions), the first ``shown`` of them."""
+    indices = [int(i) for i in indices]
+    text = ", ".join(row(i) for i in indices[:shown])
+    return text + (" ..." if len(indices) > shown else "")
 
 
 def read_table(path: str | Path) -> pd.DataFrame:
@@ -79,7 +93,7 @@ def numeric_column(table: pd.DataFrame, name: str) -> np.ndarray:
         i = int(bad[0])
         found = raw.iloc[i]
         what = "an empty cell" if pd.isna(found) else repr(str(found)[:60])
-        raise DataError(f"column '{name}' row {i + 1}: expected a finite number; found {what}")
+        raise DataError(f"column '{name}' {row(i)}: expected a finite number; found {what}")
     return values
 
 
@@ -89,16 +103,16 @@ def count_column(table: pd.DataFrame, name: str, minimum: int = 0) -> np.ndarray
     frac = np.flatnonzero(values != np.round(values))
     if frac.size:
         i = int(frac[0])
-        raise DataError(f"column '{name}' row {i + 1}: expected a whole count; found {values[i]:g}")
+        raise DataError(f"column '{name}' {row(i)}: expected a whole count; found {values[i]:g}")
     low = np.flatnonzero(values < minimum)
     if low.size:
         i = int(low[0])
         expected = "a count >= 0" if minimum == 0 else f"a count >= {minimum}"
-        raise DataError(f"column '{name}' row {i + 1}: expected {expected}; found {values[i]:g}")
+        raise DataError(f"column '{name}' {row(i)}: expected {expected}; found {values[i]:g}")
     high = np.flatnonzero(values > MAX_COUNT)
     if high.size:
         i = int(high[0])
-        raise DataError(f"column '{name}' row {i + 1}: expected a count <= 2^53; found {values[i]:g}")
+        raise DataError(f"column '{name}' {row(i)}: expected a count <= 2^53; found {values[i]:g}")
     return values.astype(np.int64)
 
 
@@ -107,7 +121,7 @@ def positive_column(table: pd.DataFrame, name: str) -> np.ndarray:
     bad = np.flatnonzero(values <= 0)
     if bad.size:
         i = int(bad[0])
-        raise DataError(f"column '{name}' row {i + 1}: expected a value > 0; found {values[i]:g}")
+        raise DataError(f"column '{name}' {row(i)}: expected a value > 0; found {values[i]:g}")
     return values
 
 
@@ -116,7 +130,7 @@ def label_column(table: pd.DataFrame, name: str) -> tuple[np.ndarray, list[str]]
     raw = table[name]
     missing = np.flatnonzero(raw.isna().to_numpy())
     if missing.size:
-        raise DataError(f"column '{name}' row {int(missing[0]) + 1}: expected a label; found an empty cell")
+        raise DataError(f"column '{name}' {row(int(missing[0]))}: expected a label; found an empty cell")
     text = raw.astype(str).to_numpy()
     labels, codes = [], {}
     out = np.empty(len(text), dtype=np.int64)
@@ -134,7 +148,7 @@ def not_above(smaller: np.ndarray, larger: np.ndarray, small_name: str, large_na
     if bad.size:
         i = int(bad[0])
         raise DataError(
-            f"column '{small_name}' row {i + 1}: {smaller[i]:g} > {large_name} {larger[i]:g}"
+            f"column '{small_name}' {row(i)}: {smaller[i]:g} > {large_name} {larger[i]:g}"
         )
 
 
