@@ -56,7 +56,7 @@ def test_bad_table_gives_one_line_and_exit_2(capsys, tmp_path, csv_text, expecte
         ("0.2", ["--prior", "spread=halfnorm(0.1)"], "did you mean halfnormal"),
         ("0.2", ["--prior", "spread=halfnormal(__import__)"], "must be numbers"),
         ("0.2", ["--prior", "spread"], "expected PARAM=DIST(ARGS)"),
-        ("0.2", ["--seed", "-4"], "expected a number >= 0"),
+        ("0.2", ["--seed", "-4"], "expected a whole number from 0 to 2^63 - 1"),
         ("0.2", ["--target-accept", "1.5"], "--target-accept: expected a number above 0 and below 1"),
         ("0.2", ["--target-accept", "high"], "found 'high'"),
     ],
@@ -105,3 +105,14 @@ def test_existing_output_folder_is_not_overwritten(capsys, tmp_path):
     err = capsys.readouterr().err
     assert code == 2 and "--force" in err
     assert (out / "report.html").read_text() == "earlier work"
+
+
+@pytest.mark.parametrize("seed", [-1, 2**63, 99999999999999999999999])
+def test_the_api_refuses_a_seed_the_history_cannot_store(tmp_path, seed):
+    import workbench
+    from workbench.errors import OptionError
+
+    path = tmp_path / "table.csv"
+    path.write_text(GOOD)
+    with pytest.raises(OptionError, match=r"seed: expected a whole number from 0 to 2\^63 - 1"):
+        workbench.check("threshold-geometry", path, options={"clearance": 0.2}, seed=seed, write=False)

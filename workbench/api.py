@@ -14,7 +14,6 @@ from pathlib import Path
 from typing import Any, Callable, Mapping
 
 from workbench import engine, harness, plans, registry, tables, writers
-from workbench.errors import OptionError
 from workbench.recipe import make_design
 
 
@@ -94,8 +93,7 @@ def check(
     history when files are written (True: the default history file; False:
     none). ``plan_file`` names the plan the run came from, for the manifest.
     """
-    if seed < 0:
-        raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
+    plans.check_seed(seed, "seed")
     design = resolve_design(target, options, priors, recipe_folders)
     dataset, info = load_data(design, data)
     if sbc and hasattr(design, "check_simulator"):
@@ -284,8 +282,7 @@ def calibrate(
     from workbench.checks.calibration import calibration_findings
     from workbench.recipe import likelihood_approximation
 
-    if seed < 0:
-        raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
+    plans.check_seed(seed, "seed")
     started = plans.now()
     design = resolve_design(target, options, priors, recipe_folders)
     dataset, info = load_data(design, data)

@@ -23,7 +23,9 @@ class _Parser(argparse.ArgumentParser):
     """argparse with one-line errors and exit status 2."""
 
     def error(self, message):
-        raise OptionError(f"{self.prog}: {message}")
+        # The printed line starts with "workbench: error:"; a command's parser adds its name.
+        command = self.prog.removeprefix(PROG).strip()
+        raise OptionError(f"{command}: {message}" if command else message)
 
 
 def commands() -> dict:
@@ -58,7 +60,7 @@ def main(argv: list[str] | None = None, last: bool = False) -> int:
         args = parser.parse_args(argv)
         if args.command is None:
             parser.print_help()
-            return 2
+            raise OptionError(f"expected a command ({', '.join(commands())}); found none")
         with interrupts.watched(last):
             code = commands()[args.command].run(args)
             interrupts.raise_if_interrupted()

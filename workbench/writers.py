@@ -74,6 +74,9 @@ def run_folder(out: str | None, label: str, force: bool, root: str | Path = "rep
     """
     if out:
         folder = Path(out)
+        if folder.exists() and not folder.is_dir():
+            raise OutputError(f"output folder {str(folder)!r}: expected a folder (new or empty); "
+                              f"found a file")
         if folder.exists() and any(folder.iterdir()) and not force:
             raise OutputError(
                 f"output folder {str(folder)!r} already holds files; expected a new or empty "
@@ -89,7 +92,7 @@ def run_folder(out: str | None, label: str, force: bool, root: str | Path = "rep
             folder = Path(root) / f"{stamp}-{slug}-{n}"
     try:
         folder.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
+    except OSError as err:  # e.g. a file where a parent folder should be
         raise OutputError(f"output folder {str(folder)!r}: cannot create it ({err.strerror})") from None
     return folder
 
