@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from workbench import modelfile
+from workbench import modelfile, registry
 from workbench.cli import main
 from workbench.errors import ModelFileError
 
@@ -202,6 +202,8 @@ BROKEN_CASES = {
     "returns_no_model": ["build_model returned None; expected a pymc.Model"],
     "infinite_logp": ["log-probability of 'y' is -inf at the model's initial point"],
     "bad_assumptions": ["ASSUMPTIONS item 1 is a dict"],
+    "exits_while_loading": ["exits_while_loading.py:5: loading the model file raised SystemExit (sys.exit(3))"],
+    "build_exits": ["build_exits.py:7: build_model raised SystemExit (sys.exit('no model today'))"],
 }
 
 
@@ -345,6 +347,13 @@ def test_user_folder_design_travels_to_worker_processes(user_recipes):
 
 
 EXAMPLE = Path(__file__).parents[1] / "examples" / "sourdough_rise.py"
+
+
+def test_recipe_file_that_exits_while_loading_is_reported_and_the_others_load(tmp_path):
+    (tmp_path / "exits.py").write_text("import sys\n\nsys.exit(3)\n")
+    reg = registry.load([str(tmp_path)])
+    assert [str(p) for p in reg.problems] == [f"{tmp_path / 'exits.py'}:3: called sys.exit(3) while loading"]
+    assert "threshold-geometry" in reg.recipes
 
 
 def test_readme_shows_the_example_model_file_in_full():

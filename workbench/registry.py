@@ -82,7 +82,7 @@ def _load_folder(folder: Path, registry: Registry) -> None:
             continue
         try:
             module = load_module(path)
-        except Exception as err:  # any error in user code: report it, keep going
+        except (Exception, SystemExit) as err:  # any error in user code, or sys.exit: report it, keep going
             registry.problems.append(_problem(path, err))
             continue
         recipe = getattr(module, "RECIPE", None)
@@ -143,4 +143,6 @@ def _problem(path: Path, err: BaseException) -> LoadProblem:
     for frame in traceback.extract_tb(err.__traceback__):
         if Path(frame.filename).resolve() == path.resolve():
             line = frame.lineno
+    if isinstance(err, SystemExit):
+        return LoadProblem(str(path), line, f"called sys.exit({err.code!r}) while loading")
     return LoadProblem(str(path), line, f"{type(err).__name__}: {err}")
