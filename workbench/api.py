@@ -227,6 +227,7 @@ def calibration_folder(out: str | Path | None, label: str, force: bool, sims: in
                 f"output folder {str(out)!r} holds a finished calibration of {finished} replicates; "
                 f"expected one of {sims} or none (use --force to replace its calibration.json; "
                 f"the checkpoint keeps every replicate)")
+        writers.clear_temporary(out)
         return Path(out)
     return writers.run_folder(str(out) if out else None, f"calibrate-{label}", force)
 
