@@ -21,6 +21,7 @@ from typing import Any, Callable
 from workbench import checks, engine, interrupts, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
+from workbench.orphans import exit_with_parent
 from workbench.progress import Progress
 
 # Versions recorded in every manifest: the interpreter and each scientific
@@ -151,7 +152,8 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     # separate processes compile in parallel. "spawn" avoids forking a process
     # that already runs sampler threads.
     done = {}
-    with ProcessPoolExecutor(workers, mp_context=get_context("spawn")) as pool, \
+    with ProcessPoolExecutor(workers, mp_context=get_context("spawn"), initializer=exit_with_parent,
+                             initargs=(os.getpid(),)) as pool, \
             Progress(len(names), "relaxed models", quiet=not progress) as bar:
         futures = {pool.submit(_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings, fitter): n
                    for n in names}
