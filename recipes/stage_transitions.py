@@ -193,11 +193,7 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     frac = np.flatnonzero(period != np.round(period))
     if frac.size:
         i = int(frac[0])
-        raise DataError(f"column 'period' row {i + 1}: expected a whole number; found {period[i]:g}")
-    huge = np.flatnonzero(np.abs(period) > tables.MAX_COUNT)  # beyond it float64 skips whole numbers
-    if huge.size:
-        i = int(huge[0])
-        raise DataError(f"column 'period' row {i + 1}: expected a period within ±2^53; found {period[i]:g}")
+        raise DataError(f"column 'period' {tables.row(i)}: expected a whole number; found {period[i]:g}")
     counts = np.column_stack([tables.count_column(table, name) for name in stages])
     if "group" in table.columns:
         group, group_labels = tables.label_column(table, "group")
@@ -265,7 +261,7 @@ def _stage_codes(table: pd.DataFrame, stages: list[str]) -> np.ndarray:
     for code, label in enumerate(labels):
         if label not in stages:
             i = int(np.flatnonzero(codes == code)[0])
-            raise DataError(f"column 'from' row {i + 1}: expected one of {', '.join(stages)}; "
+            raise DataError(f"column 'from' {tables.row(i)}: expected one of {', '.join(stages)}; "
                             f"found {label!r}")
     return np.array([stages.index(label) for label in labels], dtype=np.int64)[codes]
 
@@ -275,29 +271,29 @@ def _stage_count_rows(stages, end, cohort, cohort_labels, period, n, group, grou
     order = np.lexsort((period, cohort))
     c, t, n, g = cohort[order], period[order], n[order], group[order]
     same = c[1:] == c[:-1]
-    where = lambda j: int(order[j]) + 1  # noqa: E731  (input row number of sorted row j)
+    where = lambda j: tables.row(int(order[j]))  # noqa: E731  (input row of sorted row j)
     for j in np.flatnonzero(same):
         label = cohort_labels[c[j]]
         if t[j + 1] == t[j]:
-            raise DataError(f"column 'period' row {where(j + 1)}: cohort '{label}' already has period "
-                            f"{t[j]} in row {where(j)}; expected one row per cohort and period")
+            raise DataError(f"column 'period' {where(j + 1)}: cohort '{label}' already has period "
+                            f"{t[j]} in {where(j)}; expected one row per cohort and period")
         if t[j + 1] != t[j] + 1:
-            raise DataError(f"column 'period' row {where(j + 1)}: cohort '{label}' jumps from period "
-                            f"{t[j]} (row {where(j)}) to {t[j + 1]}; expected consecutive periods")
+            raise DataError(f"column 'period' {where(j + 1)}: cohort '{label}' jumps from period "
+                            f"{t[j]} in {where(j)} to {t[j + 1]}; expected consecutive periods")
         if g[j + 1] != g[j]:
-            raise DataError(f"column 'group' row {where(j + 1)}: {group_labels[g[j + 1]]!r} differs from "
-                            f"{group_labels[g[j]]!r} in row {where(j)}; expected one group per cohort")
+            raise DataError(f"column 'group' {where(j + 1)}: {group_labels[g[j + 1]]!r} differs from "
+                            f"{group_labels[g[j]]!r} in {where(j)}; expected one group per cohort")
         if n[j + 1].sum() != n[j].sum():
-            raise DataError(f"row {where(j + 1)}: stages sum to {n[j + 1].sum()} but to {n[j].sum()} in "
-                            f"row {where(j)} of cohort '{label}'; expected every unit counted in one "
+            raise DataError(f"{where(j + 1)}: stages sum to {n[j + 1].sum()} but to {n[j].sum()} in "
+                            f"{where(j)} of cohort '{label}'; expected every unit counted in one "
                             f"stage every period")
         for s, name in enumerate(stages):
             if end[s] and n[j + 1, s] < n[j, s]:
-                raise DataError(f"column '{name}' row {where(j + 1)}: {n[j + 1, s]} < {n[j, s]} in the "
-                                f"previous period (row {where(j)}); an end stage never loses units")
+                raise DataError(f"column '{name}' {where(j + 1)}: {n[j + 1, s]} < {n[j, s]} in the "
+                                f"previous period ({where(j)}); an end stage never loses units")
     empty = np.flatnonzero(n.sum(axis=1) == 0)
     if empty.size:
-        raise DataError(f"row {where(int(empty[0]))}: expected at least one unit in some stage; found none")
+        raise DataError(f"{where(int(empty[0]))}: expected at least one unit in some stage; found none")
     if not same.any():
         raise DataError("column 'period': expected at least one cohort seen in two consecutive periods; "
                         "found none")
@@ -309,25 +305,25 @@ def _transition_rows(stages, end, allowed, cohort, cohort_labels, period, source
     """Sorted row order, the rows that are steps, and each step's start period (transition counts)."""
     order = np.lexsort((source, period, cohort))
     c, t, f = cohort[order], period[order], source[order]
-    where = lambda j: int(order[j]) + 1  # noqa: E731  (input row number of sorted row j)
+    where = lambda j: tables.row(int(order[j]))  # noqa: E731  (input row of sorted row j)
     twin = np.flatnonzero((c[1:] == c[:-1]) & (t[1:] == t[:-1]) & (f[1:] == f[:-1]))
     if twin.size:
         j = int(twin[0])
-        raise DataError(f"row {where(j + 1)}: cohort '{cohort_labels[c[j]]}' already has period {t[j]} "
-                        f"from '{stages[f[j]]}' in row {where(j)}; expected one row per cohort, period "
+        raise DataError(f"{where(j + 1)}: cohort '{cohort_labels[c[j]]}' already has period {t[j]} "
+                        f"from '{stages[f[j]]}' in {where(j)}; expected one row per cohort, period "
                         f"and from-stage")
     _, first_row = np.unique(cohort, return_index=True)
     other = np.flatnonzero(group != group[first_row][cohort])
     if other.size:
         i, j = int(other[0]), int(first_row[cohort[other[0]]])
-        raise DataError(f"column 'group' row {i + 1}: {group_labels[group[i]]!r} differs from "
-                        f"{group_labels[group[j]]!r} in row {j + 1}; expected one group per cohort")
+        raise DataError(f"column 'group' {tables.row(i)}: {group_labels[group[i]]!r} differs from "
+                        f"{group_labels[group[j]]!r} in {tables.row(j)}; expected one group per cohort")
     moved = np.argwhere((n > 0) & ~allowed[source])
     if moved.size:
         i, j = (int(x) for x in moved[0])
         why = ("an end stage never loses units" if end[source[i]]
                else "a move the design does not allow (option 'moves')")
-        raise DataError(f"column '{stages[j]}' row {i + 1}: {n[i, j]} unit(s) moved from "
+        raise DataError(f"column '{stages[j]}' {tables.row(i)}: {n[i, j]} unit(s) moved from "
                         f"'{stages[source[i]]}' to '{stages[j]}', {why}")
     step = np.flatnonzero(~end[f])
     if not (n[order][step].sum(axis=1) > 0).any():

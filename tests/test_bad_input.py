@@ -25,14 +25,14 @@ def _run(capsys, tmp_path, csv_text, *extra, target="threshold-geometry", cleara
     [
         ("distance,attempt,successes\n1,100,90\n", "needs column 'attempts'; did you mean 'attempt'?"),
         ("distance,attempts\n1,100\n", "needs column 'successes'"),
-        ("distance,attempts,successes\n1,many,90\n", "column 'attempts' row 1: expected a finite number; found 'many'"),
-        ("distance,attempts,successes\n1,100,\n2,100,3\n", "column 'successes' row 1: expected a finite number; found an empty cell"),
-        ("distance,attempts,successes\n1,100,-3\n", "column 'successes' row 1: expected a count >= 0; found -3"),
-        ("distance,attempts,successes\n1,100,90\n2,200,212\n", "column 'successes' row 2: 212 > attempts 200"),
-        ("distance,attempts,successes\n1,0,0\n", "column 'attempts' row 1: expected a count >= 1; found 0"),
-        ("distance,attempts,successes\n0,10,3\n", "column 'distance' row 1: expected a value > 0; found 0"),
-        ("distance,attempts,successes\n-2,10,3\n", "column 'distance' row 1: expected a value > 0; found -2"),
-        ("distance,attempts,successes\n1,10.5,3\n", "column 'attempts' row 1: expected a whole count; found 10.5"),
+        ("distance,attempts,successes\n1,many,90\n", "column 'attempts' row 1 (line 2): expected a finite number; found 'many'"),
+        ("distance,attempts,successes\n1,100,\n2,100,3\n", "column 'successes' row 1 (line 2): expected a finite number; found an empty cell"),
+        ("distance,attempts,successes\n1,100,-3\n", "column 'successes' row 1 (line 2): expected a count >= 0; found -3"),
+        ("distance,attempts,successes\n1,100,90\n2,200,212\n", "column 'successes' row 2 (line 3): 212 > attempts 200"),
+        ("distance,attempts,successes\n1,0,0\n", "column 'attempts' row 1 (line 2): expected a count >= 1; found 0"),
+        ("distance,attempts,successes\n0,10,3\n", "column 'distance' row 1 (line 2): expected a value > 0; found 0"),
+        ("distance,attempts,successes\n-2,10,3\n", "column 'distance' row 1 (line 2): expected a value > 0; found -2"),
+        ("distance,attempts,successes\n1,10.5,3\n", "column 'attempts' row 1 (line 2): expected a whole count; found 10.5"),
         ("distance,attempts,successes\n", "expected at least one data row"),
     ],
 )
@@ -56,7 +56,7 @@ def test_bad_table_gives_one_line_and_exit_2(capsys, tmp_path, csv_text, expecte
         ("0.2", ["--prior", "spread=halfnorm(0.1)"], "did you mean halfnormal"),
         ("0.2", ["--prior", "spread=halfnormal(__import__)"], "must be numbers"),
         ("0.2", ["--prior", "spread"], "expected PARAM=DIST(ARGS)"),
-        ("0.2", ["--seed", "-4"], "expected a number >= 0"),
+        ("0.2", ["--seed", "-4"], "expected a whole number from 0 to 2^63 - 1"),
         ("0.2", ["--target-accept", "1.5"], "--target-accept: expected a number above 0 and below 1"),
         ("0.2", ["--target-accept", "high"], "found 'high'"),
     ],
@@ -85,7 +85,7 @@ def test_binary_garbage_is_an_unreadable_table(capsys, tmp_path):
     path.write_bytes(b"\x00\x01not parquet at all")
     code = main(["check", "threshold-geometry", "--data", str(path), "--set", "clearance=0.2"])
     err = capsys.readouterr().err
-    assert code == 2 and "could not read it as a table" in err
+    assert code == 2 and "expected a Parquet file; it looks like binary data" in err
 
 
 def test_missing_data_argument_is_a_usage_error(capsys):
@@ -105,3 +105,14 @@ def test_existing_output_folder_is_not_overwritten(capsys, tmp_path):
     err = capsys.readouterr().err
     assert code == 2 and "--force" in err
     assert (out / "report.html").read_text() == "earlier work"
+
+
+@pytest.mark.parametrize("seed", [-1, 2**63, 99999999999999999999999])
+def test_the_api_refuses_a_seed_the_history_cannot_store(tmp_path, seed):
+    import workbench
+    from workbench.errors import OptionError
+
+    path = tmp_path / "table.csv"
+    path.write_text(GOOD)
+    with pytest.raises(OptionError, match=r"seed: expected a whole number from 0 to 2\^63 - 1"):
+        workbench.check("threshold-geometry", path, options={"clearance": 0.2}, seed=seed, write=False)

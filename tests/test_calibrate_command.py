@@ -45,10 +45,21 @@ def test_calibrate_appends_a_history_row(calibrated):
     assert set(rows[-1].verdicts) == {"implementation"}
 
 
+def test_another_number_of_replicates_does_not_replace_a_finished_result_without_force(
+        calibrated, throwing_csv, capsys):
+    out, history_file = calibrated
+    before = (out / "calibration.json").read_bytes(), (out / CHECKPOINT).read_bytes()
+    sims = json.loads(before[0])["calibration"]["sims"]
+    assert calibrate(throwing_csv, out, history_file, sims + 5) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and f"holds a finished calibration of {sims} replicates" in err
+    assert ((out / "calibration.json").read_bytes(), (out / CHECKPOINT).read_bytes()) == before
+
+
 def test_rerun_on_the_same_folder_resumes_and_keeps_finished_replicates(calibrated, throwing_csv):
     out, history_file = calibrated
     before = (out / CHECKPOINT).read_bytes()
-    assert calibrate(throwing_csv, out, history_file, 3) == 0
+    assert calibrate(throwing_csv, out, history_file, 3, "--force") == 0
     after = (out / CHECKPOINT).read_bytes()
     assert after.startswith(before)  # finished replicates were kept, not redone
     assert len(after.splitlines()) == len(before.splitlines()) + 1  # one new replicate

@@ -53,13 +53,13 @@ def one_line_error(kind, table, **options):
 def test_outcomes_above_exposed_name_the_row():
     table = small_table()
     table.loc[2, "scrapped"] = 120
-    assert one_line_error(DataError, table) == "row 3: outcomes fixed + scrapped sum to 170 > exposed 150"
+    assert one_line_error(DataError, table) == "row 3 (line 4): outcomes fixed + scrapped sum to 170 > exposed 150"
 
 
 def test_a_falling_outcome_count_is_refused():
     table = small_table()
     table.loc[1, "scrapped"] = 5
-    assert "column 'scrapped' row 2: 5 < 10" in one_line_error(DataError, table)
+    assert "column 'scrapped' row 2 (line 3): 5 < 10" in one_line_error(DataError, table)
 
 
 def test_a_single_outcome_is_an_option_error():

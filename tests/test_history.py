@@ -139,3 +139,18 @@ def test_a_file_that_is_not_a_history_is_a_one_line_error(tmp_path, capsys):
     assert main(["history", "--history", str(path)]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "expected a workbench history database" in err
+
+
+def test_a_recipe_filter_matching_nothing_suggests_the_close_recorded_name(tmp_path, capsys):
+    path = tmp_path / "h.sqlite"
+    history.record(path, history.Entry(command="check", target="timing-curve", target_hash="0" * 64,
+                                       design="timing-curve:family=weibull", data_path="d.csv",
+                                       data_hash="f" * 64, seed=1, verdicts={}, report="r.html"))
+    assert main(["history", "--history", str(path), "--recipe", "timing-curv"]) == 0
+    assert "matching the filters; did you mean 'timing-curve'?" in capsys.readouterr().out
+
+
+def test_a_limit_below_one_is_refused(tmp_path, capsys):
+    assert main(["history", "--history", str(tmp_path / "h.sqlite"), "--limit", "-1"]) == 2
+    err = capsys.readouterr().err
+    assert err == "workbench: error: history: argument --limit: expected a whole number >= 1; found '-1'\n"

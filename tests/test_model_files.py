@@ -18,7 +18,7 @@ import pytest
 import xarray as xr
 
 from conftest import FUNNEL
-from workbench import modelfile
+from workbench import modelfile, registry
 from workbench.cli import main
 from workbench.errors import ModelFileError
 
@@ -208,6 +208,8 @@ BROKEN_CASES = {
     "returns_no_model": ["build_model returned None; expected a pymc.Model"],
     "infinite_logp": ["log-probability of 'y' is -inf at the model's initial point"],
     "bad_assumptions": ["ASSUMPTIONS item 1 is a dict"],
+    "exits_while_loading": ["exits_while_loading.py:5: loading the model file raised SystemExit (sys.exit(3))"],
+    "build_exits": ["build_exits.py:7: build_model raised SystemExit (sys.exit('no model today'))"],
 }
 
 
@@ -240,7 +242,7 @@ def test_missing_observed_value_names_variable_column_and_row(tmp_path, capsys):
                  "--out", str(tmp_path / "run")])
     err = capsys.readouterr().err.strip()
     assert code == 2 and len(err.splitlines()) == 1
-    assert "observes 'y' with missing values (NaN); column 'y' is empty at row(s) 4" in err
+    assert "observes 'y' with missing values (NaN); column 'y' is empty at row 4 (line 5)" in err
 
 
 @pytest.mark.parametrize("flag", [["--set", "clearance=0.3"], ["--prior", "mu=normal(0,1)"]])
@@ -351,6 +353,13 @@ def test_user_folder_design_travels_to_worker_processes(user_recipes):
 
 
 EXAMPLE = Path(__file__).parents[1] / "examples" / "sourdough_rise.py"
+
+
+def test_recipe_file_that_exits_while_loading_is_reported_and_the_others_load(tmp_path):
+    (tmp_path / "exits.py").write_text("import sys\n\nsys.exit(3)\n")
+    reg = registry.load([str(tmp_path)])
+    assert [str(p) for p in reg.problems] == [f"{tmp_path / 'exits.py'}:3: called sys.exit(3) while loading"]
+    assert "threshold-geometry" in reg.recipes
 
 
 def test_readme_shows_the_example_model_file_in_full():

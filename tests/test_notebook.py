@@ -65,3 +65,17 @@ def test_comparison_notebook_is_valid_and_calls_the_public_api():
     source = "\n".join(c.source for c in nb.cells)
     assert "workbench.compare(" in source and shared_runs.TRUE_DESIGN in source
     assert "cache=False" in source and "seed=2" in source
+
+
+def test_a_plan_title_cannot_add_markup_or_headings_to_the_notebook():
+    from workbench.notebook import for_audit
+
+    title = "Sign-off <script>alert(1)</script>\n# injected [link](http://x) *bold*"
+    doc = {"title": title, "data": {"path": "a`b.csv", "sha256": "0" * 64}, "seed": 1,
+           "manifest": {"plan": {"file": "plan.toml"}}}
+    intro = nbformat.reads(for_audit(doc), as_version=4).cells[0].source
+    heading, _, rest = intro.partition("\n")
+    assert heading == ("# Reproduce: Sign\\-off &lt;script&gt;alert\\(1\\)&lt;/script&gt; \\# injected "
+                       "\\[link\\]\\(http://x\\) \\*bold\\*")
+    assert "<script" not in intro and "\n#" not in rest
+    assert "`` a`b.csv ``" in rest

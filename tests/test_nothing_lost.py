@@ -348,3 +348,53 @@ def test_without_out_each_run_gets_a_new_folder_named_by_time_and_design(tmp_pat
         stamp, _, rest = folder.name.partition("-")
         assert len(stamp) == 8 and stamp.isdigit()  # YYYYMMDD, then HHMMSS
         assert "threshold-geometry" in rest and "clearance=0.25" in rest
+
+
+# A process killed by SIGKILL inside atomic_write, after its temporary file got bytes.
+KILLED_WRITER = """
+import os, signal, sys
+from pathlib import Path
+from workbench import writers
+
+def write(tmp):
+    Path(tmp).write_bytes(b"half a posterior")
+    os.kill(os.getpid(), signal.SIGKILL)
+
+writers.atomic_write_with(Path(sys.argv[1]) / "posterior.nc", write)
+"""
+# What a rerun does first with its --out folder (with or without --force).
+RERUN_FOLDER = """
+import sys
+from workbench import writers
+writers.run_folder(sys.argv[1], "rerun", force=sys.argv[2] == "force")
+"""
+
+
+def _leftovers(folder: Path) -> list[str]:
+    return sorted(p.name for p in folder.iterdir() if writers.TEMP_PATTERN.fullmatch(p.name))
+
+
+def test_a_writer_killed_mid_write_leaves_only_a_temporary_file(tmp_path):
+    done = subprocess.run([sys.executable, "-c", KILLED_WRITER, str(tmp_path)], timeout=120)
+    assert done.returncode == -signal.SIGKILL
+    assert not (tmp_path / "posterior.nc").exists()
+    assert len(_leftovers(tmp_path)) == 1 and _leftovers(tmp_path)[0].startswith(".posterior.nc.")
+
+
+def test_a_forced_rerun_clears_the_temporary_files_of_a_killed_run_and_keeps_the_rest(tmp_path):
+    subprocess.run([sys.executable, "-c", KILLED_WRITER, str(tmp_path)], timeout=120)
+    (tmp_path / ".summary.json.ab12cd_9.tmp").write_bytes(b"")  # an empty one, cut at once
+    (tmp_path / "summary.json").write_text("{}")
+    (tmp_path / ".notes.tmp").write_text("the user's own file")  # not our pattern
+    done = subprocess.run([sys.executable, "-c", RERUN_FOLDER, str(tmp_path), "force"], timeout=120)
+    assert done.returncode == 0
+    assert _leftovers(tmp_path) == []
+    assert sorted(p.name for p in tmp_path.iterdir()) == [".notes.tmp", "summary.json"]
+
+
+def test_a_folder_holding_only_a_killed_runs_temporary_file_counts_as_empty(tmp_path):
+    (tmp_path / ".posterior.nc.k1ll3d_0.tmp").write_bytes(b"")
+    done = subprocess.run([sys.executable, "-c", RERUN_FOLDER, str(tmp_path), "no"], timeout=120,
+                          capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    assert list(tmp_path.iterdir()) == []

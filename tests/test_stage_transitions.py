@@ -60,13 +60,13 @@ def one_line_error(kind, table, **options):
 def test_a_changing_total_is_refused():
     table = small_table()
     table.loc[1, "new"] = 45
-    assert "row 2: stages sum to 95 but to 100 in row 1" in one_line_error(DataError, table)
+    assert "row 2 (line 3): stages sum to 95 but to 100 in row 1 (line 2)" in one_line_error(DataError, table)
 
 
 def test_a_gap_in_periods_is_refused():
     table = small_table()
     table.loc[2, "period"] = 4
-    assert "jumps from period 1 (row 2) to 4" in one_line_error(DataError, table)
+    assert "jumps from period 1 in row 2 (line 3) to 4" in one_line_error(DataError, table)
 
 
 def test_a_repeated_period_is_refused():
@@ -78,7 +78,7 @@ def test_a_repeated_period_is_refused():
 def test_an_end_stage_that_loses_units_is_refused():
     table = small_table()
     table.loc[2, ["dropped", "active"]] = [10, 55]
-    assert "column 'dropped' row 3: 10 < 15" in one_line_error(DataError, table)
+    assert "column 'dropped' row 3 (line 4): 10 < 15" in one_line_error(DataError, table)
 
 
 def test_an_end_stage_outside_the_stages_is_an_option_error():
@@ -110,7 +110,7 @@ def test_a_fractional_period_is_refused():
     table = small_table()
     table["period"] = table["period"].astype(float)
     table.loc[0, "period"] = 0.5
-    assert "column 'period' row 1: expected a whole number" in one_line_error(DataError, table)
+    assert "column 'period' row 1 (line 2): expected a whole number" in one_line_error(DataError, table)
 
 
 def test_a_table_without_any_move_is_refused():
@@ -329,18 +329,18 @@ def transition_table():
 
 @pytest.mark.parametrize("change, expected", [
     (lambda t: t.assign(**{"from": ["old", "new", "active", "new"]}),
-     "column 'from' row 1: expected one of new, active, done, dropped; found 'old'"),
+     "column 'from' row 1 (line 2): expected one of new, active, done, dropped; found 'old'"),
     (lambda t: t.assign(**{"from": ["new", "new", "new", "new"]}),
-     "row 3: cohort 'A' already has period 1 from 'new' in row 2; expected one row per cohort, "
+     "row 3 (line 4): cohort 'A' already has period 1 from 'new' in row 2 (line 3); expected one row per cohort, "
      "period and from-stage"),
     (lambda t: pd.concat([t, pd.DataFrame([{"cohort": "B", "period": 2, "from": "done", "new": 0,
                                             "active": 0, "done": 3, "dropped": 2}])], ignore_index=True),
-     "column 'dropped' row 5: 2 unit(s) moved from 'done' to 'dropped', an end stage never loses units"),
+     "column 'dropped' row 5 (line 6): 2 unit(s) moved from 'done' to 'dropped', an end stage never loses units"),
     (lambda t: t.assign(active=[35, 25, 20, 28], new=[50, 20, 4, 40]),
-     "column 'new' row 3: 4 unit(s) moved from 'active' to 'new', a move the design does not allow "
+     "column 'new' row 3 (line 4): 4 unit(s) moved from 'active' to 'new', a move the design does not allow "
      "(option 'moves')"),
     (lambda t: t.assign(group=["x", "y", "x", "x"]),
-     "column 'group' row 2: 'y' differs from 'x' in row 1; expected one group per cohort"),
+     "column 'group' row 2 (line 3): 'y' differs from 'x' in row 1 (line 2); expected one group per cohort"),
     (lambda t: t.assign(**{"from": ["done", "dropped", "done", "dropped"], "new": 0, "active": 0,
                            "done": [5, 0, 5, 0], "dropped": [0, 3, 0, 3]}),
      "expected at least one row with units in a stage that is not an end stage; found none"),

@@ -52,26 +52,26 @@ def one_line_error(kind, table, **options):
 def test_events_above_exposed_name_the_row():
     table = small_table()
     table.loc[1, "events"] = 212
-    assert one_line_error(DataError, table) == "column 'events' row 2: 212 > exposed 200"
+    assert one_line_error(DataError, table) == "column 'events' row 2 (line 3): 212 > exposed 200"
 
 
 def test_events_falling_with_age_are_refused():
     table = small_table()
     table.loc[3, "events"] = 80  # age 9 below the 90 seen at age 5
     message = one_line_error(DataError, table)
-    assert "column 'events' row 4: 80 < 90" in message and "row 2" in message
+    assert "column 'events' row 4 (line 5): 80 < 90" in message and "row 2 (line 3)" in message
 
 
 def test_negative_age_is_refused():
     table = small_table()
     table.loc[2, "age"] = -1
-    assert "column 'age' row 3: expected an age >= 0; found -1" in one_line_error(DataError, table)
+    assert "column 'age' row 3 (line 4): expected an age >= 0; found -1" in one_line_error(DataError, table)
 
 
 def test_two_exposed_values_in_one_cohort_are_refused():
     table = small_table()
     table.loc[3, "exposed"] = 210
-    assert "column 'exposed' row 4: 210 differs from 200" in one_line_error(DataError, table)
+    assert "column 'exposed' row 4 (line 5): 210 differs from 200" in one_line_error(DataError, table)
 
 
 def test_one_cohort_seen_twice_at_one_age_is_refused():
@@ -95,7 +95,7 @@ def test_partial_pooling_without_groups_is_refused():
 
 def test_a_cohort_in_two_groups_is_refused():
     table = small_table().assign(group=["x", "y", "x", "x"])
-    assert "column 'group' row 2" in one_line_error(DataError, table)
+    assert "column 'group' row 2 (line 3)" in one_line_error(DataError, table)
 
 
 # --- layout -------------------------------------------------------------------------------------

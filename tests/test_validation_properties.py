@@ -210,7 +210,7 @@ def test_count_too_large_for_float64_is_refused():
     # 2^53 + 2 reads back as a different whole number in float64 (IEEE 754 double).
     table = pd.DataFrame({"distance": [1.0, 2.0], "attempts": [10, 2**53 + 2], "successes": [5, 5]})
     recipe, options, _ = _scenario("threshold-geometry")
-    with pytest.raises(DataError, match=r"column 'attempts' row 2: expected a count <= 2\^53"):
+    with pytest.raises(DataError, match=r"column 'attempts' row 2 \(line 3\): expected a count <= 2\^53"):
         recipe.validate(table, options)
 
 
@@ -218,5 +218,17 @@ def test_period_too_large_for_float64_is_refused():
     recipe, options, demo = _scenario("stage-transitions")
     table = demo.copy()
     table["period"] = table["period"] * 1e19
-    with pytest.raises(DataError, match=r"column 'period' row \d+: expected a period within"):
+    with pytest.raises(DataError, match=r"column 'period' row \d+ \(line \d+\): expected a number within ±2\^53"):
+        recipe.validate(table, options)
+
+
+@pytest.mark.parametrize("name, column", [("threshold-geometry", "distance"), ("timing-curve", "age"),
+                                          ("competing-risks", "age"), ("stage-transitions", "period")])
+def test_a_measurement_too_large_for_the_models_arithmetic_is_refused_with_its_row(name, column):
+    recipe, options, demo = _scenario(name)
+    table = demo.copy()
+    table[column] = table[column].astype(float)
+    table.loc[table.index[1], column] = 1e300
+    with pytest.raises(DataError, match=rf"column '{column}' row 2 \(line 3\): expected a number "
+                                        rf"within ±2\^53; found 1e\+300"):
         recipe.validate(table, options)

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any, Callable, Mapping
 
 from workbench import engine, harness, plans, registry, tables, writers
-from workbench.errors import OptionError
+from workbench.errors import OutputError
 from workbench.recipe import make_design
 
 
@@ -94,8 +94,7 @@ def check(
     history when files are written (True: the default history file; False:
     none). ``plan_file`` names the plan the run came from, for the manifest.
     """
-    if seed < 0:
-        raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
+    plans.check_seed(seed, "seed")
     design = resolve_design(target, options, priors, recipe_folders)
     dataset, info = load_data(design, data)
     if sbc and hasattr(design, "check_simulator"):
@@ -212,9 +211,10 @@ class CalibrateResult:
                 f"<table><tr><th>quantity</th><th>uniformity p-value</th></tr>{rows}</table>")
 
 
-def calibration_folder(out: str | Path | None, label: str, force: bool) -> Path:
+def calibration_folder(out: str | Path | None, label: str, force: bool, sims: int | None = None) -> Path:
     """The run folder of a calibration: a folder holding this calibration's
-    checkpoint is reused (the run resumes); any other non-empty folder needs ``force``.
+    checkpoint is reused (the run resumes); any other non-empty folder needs ``force``,
+    and so does a finished result (calibration.json) of another number of replicates.
 
     Resuming needs no ``--force`` because it overwrites nothing that matters:
     each replicate's result depends only on (design, data, seed, index,
@@ -225,8 +225,25 @@ def calibration_folder(out: str | Path | None, label: str, force: bool) -> Path:
     from workbench.calibration import CHECKPOINT
 
     if out is not None and (Path(out) / CHECKPOINT).is_file():
+        finished = _finished_sims(Path(out) / "calibration.json")
+        if sims is not None and finished is not None and finished != sims and not force:
+            raise OutputError(
+                f"output folder {str(out)!r} holds a finished calibration of {finished} replicates; "
+                f"expected one of {sims} or none (use --force to replace its calibration.json; "
+                f"the checkpoint keeps every replicate)")
+        writers.clear_temporary(out)
         return Path(out)
     return writers.run_folder(str(out) if out else None, f"calibrate-{label}", force)
+
+
+def _finished_sims(path: Path) -> int | None:
+    """The replicates of the finished calibration in ``path`` (None: no readable result)."""
+    import json
+
+    try:
+        return int(json.loads(path.read_text(encoding="utf-8"))["calibration"]["sims"])
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
 
 
 def calibrate(
@@ -288,14 +305,13 @@ def calibrate(
     from workbench.checks.calibration import calibration_findings
     from workbench.recipe import likelihood_approximation
 
-    if seed < 0:
-        raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
+    plans.check_seed(seed, "seed")
     started = plans.now()
     design = resolve_design(target, options, priors, recipe_folders)
     dataset, info = load_data(design, data)
     if hasattr(design, "check_simulator"):
         design.check_simulator(dataset)  # a model file's story: one clear line before any fit
-    folder = calibration_folder(out, design.label(), force) if write else None
+    folder = calibration_folder(out, design.label(), force, sims) if write else None
     result = run_calibration(design, dataset, sims, seed, workers=workers, cluster=cluster,
                              folder=folder, settings=settings, quiet=quiet)
     findings = calibration_findings(result, likelihood_approximation(design, dataset))

@@ -24,7 +24,9 @@ class _Parser(argparse.ArgumentParser):
     """argparse with one-line errors and exit status 2."""
 
     def error(self, message):
-        raise OptionError(f"{self.prog}: {message}")
+        # The printed line starts with "workbench: error:"; a command's parser adds its name.
+        command = self.prog.removeprefix(PROG).strip()
+        raise OptionError(f"{command}: {message}" if command else message)
 
 
 def commands() -> dict:
@@ -59,7 +61,7 @@ def main(argv: list[str] | None = None, last: bool = False) -> int:
         args = parser.parse_args(argv)
         if args.command is None:
             parser.print_help()
-            return 2
+            raise OptionError(f"expected a command ({', '.join(commands())}); found none")
         # Library warnings stay off the terminal (a check keeps them in its
         # run folder's warnings.log).
         with interrupts.watched(last), warnings.catch_warnings():

@@ -98,7 +98,7 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
     negative = np.flatnonzero(age < 0)
     if negative.size:
         i = int(negative[0])
-        raise DataError(f"column 'age' row {i + 1}: expected an age >= 0; found {age[i]:g}")
+        raise DataError(f"column 'age' {tables.row(i)}: expected an age >= 0; found {age[i]:g}")
     exposed = tables.count_column(table, "exposed", minimum=1)
     counts = np.column_stack([tables.count_column(table, name) for name in outcomes])
     if len(outcomes) == 1:
@@ -109,7 +109,7 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
         if bad.size:
             i = int(bad[0])
             raise DataError(
-                f"row {i + 1}: outcomes {' + '.join(outcomes)} sum to {total[i]} > exposed {exposed[i]}"
+                f"{tables.row(i)}: outcomes {' + '.join(outcomes)} sum to {total[i]} > exposed {exposed[i]}"
             )
     if "group" in table.columns:
         group, group_labels = tables.label_column(table, "group")
@@ -125,8 +125,8 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
     if repeat.size:
         a, b = sorted((int(order[repeat[0]]), int(order[repeat[0] + 1])))
         raise DataError(
-            f"column 'age' row {b + 1}: cohort '{cohort_labels[cohort_s[repeat[0]]]}' already has "
-            f"age {age_s[repeat[0]]:g} in row {a + 1}; expected one row per cohort and age"
+            f"column 'age' {tables.row(b)}: cohort '{cohort_labels[cohort_s[repeat[0]]]}' already has "
+            f"age {age_s[repeat[0]]:g} in {tables.row(a)}; expected one row per cohort and age"
         )
     counts_s = counts[order]
     for k, name in enumerate(outcomes):
@@ -134,8 +134,8 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
         if drop.size:
             j = int(drop[0])
             raise DataError(
-                f"column '{name}' row {int(order[j + 1]) + 1}: {counts_s[j + 1, k]} < "
-                f"{counts_s[j, k]} at the earlier age {age_s[j]:g} (row {int(order[j]) + 1}); "
+                f"column '{name}' {tables.row(int(order[j + 1]))}: {counts_s[j + 1, k]} < "
+                f"{counts_s[j, k]} at the earlier age {age_s[j]:g} ({tables.row(int(order[j]))}); "
                 f"expected counts cumulative (non-decreasing in age) within cohort "
                 f"'{cohort_labels[cohort_s[j]]}'"
             )
@@ -204,8 +204,8 @@ def _same_within_cohort(cohort, labels, values, name, value_labels=None):
         if values[j] != v:
             show = (lambda x: repr(value_labels[x])) if value_labels else (lambda x: f"{x:g}")
             raise DataError(
-                f"column '{name}' row {i + 1}: {show(v)} differs from {show(values[j])} given for "
-                f"cohort '{labels[c]}' in row {j + 1}; expected one {name} per cohort"
+                f"column '{name}' {tables.row(i)}: {show(v)} differs from {show(values[j])} given for "
+                f"cohort '{labels[c]}' in {tables.row(j)}; expected one {name} per cohort"
             )
 
 

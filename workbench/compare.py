@@ -42,7 +42,7 @@ import numpy as np
 
 from workbench import writers
 from workbench.errors import OptionError
-from workbench.plans import DesignSpec, Plan, manifest, now, parse_design, read_plan
+from workbench.plans import DesignSpec, Plan, check_seed, manifest, now, parse_design, read_plan
 
 if TYPE_CHECKING:
     from workbench import engine
@@ -217,7 +217,7 @@ def _plan_of(designs, data, seed, relax) -> Plan:
     if data is not None:
         plan.data = Path(data)
     if seed is not None:
-        plan.seed = int(seed)
+        plan.seed = check_seed(seed, "seed")
     if relax is not None:
         plan.relax = bool(relax)
     return plan

@@ -5,6 +5,15 @@ Every error a user can cause (bad data, bad options, a bad command line) is a
 exits with status 2. Anything else is a bug in the workbench.
 """
 
+from difflib import get_close_matches
+from typing import Iterable
+
+
+def did_you_mean(name: str, known: Iterable[str]) -> str:
+    """``"; did you mean 'x'?"`` for the known name closest to ``name``, else ``""``."""
+    close = get_close_matches(name, list(known), n=1)
+    return f"; did you mean '{close[0]}'?" if close else ""
+
 
 class WorkbenchError(Exception):
     """A problem the user can fix; the message says what was expected and found."""

@@ -96,7 +96,13 @@ def spawn_context():
     return get_context("spawn")
 
 
-def process_pool(workers: int, initializer=None, initargs=()) -> ProcessPoolExecutor:
-    """A pool of spawned helpers; start them with :func:`user_script_hidden` active."""
-    return ProcessPoolExecutor(workers, mp_context=spawn_context(), initializer=initializer,
-                               initargs=initargs)
+def process_pool(workers: int) -> ProcessPoolExecutor:
+    """A pool of spawned helpers that end when this process dies.
+
+    Submit to it with :func:`user_script_hidden` active: helpers start on
+    the first submits.
+    """
+    from workbench.orphans import exit_with_parent
+
+    return ProcessPoolExecutor(workers, mp_context=spawn_context(), initializer=exit_with_parent,
+                               initargs=(os.getpid(),))

@@ -210,6 +210,19 @@ def runs(path: str | Path, target: str | None = None, data_hash: str | None = No
         conn.close()
 
 
+def targets(path: str | Path) -> list[str]:
+    """Every recipe name, design and model file (also by file name) the history holds."""
+    if not Path(path).exists():
+        return []
+    conn = connect(path)
+    try:
+        found = {name for pair in conn.execute("SELECT DISTINCT target, design FROM runs")
+                 for text in pair for name in str(text).split(" | ")}
+    finally:
+        conn.close()
+    return sorted(found | {Path(name).name for name in found})
+
+
 def _like(text: str) -> str:
     # Wildcards in a user's text match themselves only (ESCAPE '\\' above).
     return text.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")

@@ -51,6 +51,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from workbench import tables
 from workbench.errors import ModelFileError, OptionError, WorkbenchError
 from workbench.findings import GENERIC_ASSUMPTIONS
 from workbench.recipe import Assumption, Relaxation, Statistic
@@ -172,7 +173,7 @@ def load_module(path: Path):
         return registry.load_module(path)
     except SyntaxError as err:
         raise ModelFileError(f"{path}:{err.lineno}: syntax error: {err.msg}") from None
-    except Exception as err:  # any error in the user's module-level code
+    except (Exception, SystemExit) as err:  # any error in the user's module-level code, or sys.exit
         raise ModelFileError(f"{_where(path, err)}: loading the model file raised {_describe(err)}") from err
 
 
@@ -190,6 +191,8 @@ def _where(path: Path, err: BaseException) -> str:
 
 
 def _describe(err: BaseException) -> str:
+    if isinstance(err, SystemExit):
+        return f"SystemExit (sys.exit({err.code!r})); a model file must not end the process"
     text = " ".join(str(err).split())
     if len(text) > MESSAGE_LIMIT:
         text = text[: MESSAGE_LIMIT - 3] + "..."
@@ -411,7 +414,7 @@ class ModelFileDesign:
             result = self._story(rng, _frame(data).copy())
         except WorkbenchError:
             raise
-        except Exception as err:
+        except (Exception, SystemExit) as err:
             raise ModelFileError(f"{_where(self.path, err)}: simulate raised {_describe(err)}") from err
         if (not isinstance(result, tuple) or len(result) != 2 or not isinstance(result[0], dict)
                 or not isinstance(result[1], pd.DataFrame)):
@@ -433,7 +436,7 @@ class ModelFileDesign:
                 model = builder(frame)
             except WorkbenchError:
                 raise
-            except Exception as err:
+            except (Exception, SystemExit) as err:
                 hint = ""
                 if isinstance(err, KeyError) and err.args and err.args[0] not in frame.columns:
                     hint = f" (the table's columns: {', '.join(map(str, frame.columns))})"
@@ -514,7 +517,7 @@ def _user_statistic(path: str, key: str, compute, data, outcomes, draws):
         return compute(_frame(data), outcomes, draws)
     except WorkbenchError:
         raise
-    except Exception as err:
+    except (Exception, SystemExit) as err:
         raise ModelFileError(
             f"{_where(Path(path), err)}: the statistic of '{key}' raised {_describe(err)}"
         ) from err
@@ -649,8 +652,8 @@ def _missing_message(path: Path, warning: str, frame: pd.DataFrame, what: str) -
     column = name if name in empty else (empty[0] if len(empty) == 1 else None)
     where = ""
     if column is not None:
-        rows = np.flatnonzero(frame[column].isna().to_numpy()) + 1
-        where = f"; column '{column}' is empty at row(s) {_rows(rows)}"
+        empty_rows = np.flatnonzero(frame[column].isna().to_numpy())
+        where = f"; column '{column}' is empty at {tables.rows(empty_rows, ROWS_SHOWN)}"
     return (f"{path}: {what} observes '{name}' with missing values (NaN){where}; expected "
             f"every observed value (drop or fill those rows of the table)")
 

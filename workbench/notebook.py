@@ -9,7 +9,9 @@ the rerun reproduced them.
 
 from __future__ import annotations
 
+import html
 import json
+import re
 from pathlib import Path
 
 import nbformat
@@ -80,11 +82,29 @@ def _notebook(cells: list) -> str:
     return nbformat.writes(nb)
 
 
+# Characters that start Markdown syntax (emphasis, links, headings, lists, tables);
+# HTML's <, > and & become entities instead.
+MARKDOWN_SPECIAL = set("\\`*_{}[]()#+-.!|~")
+
+
+def markdown_text(text: str) -> str:
+    """``text`` as plain words in Markdown: one line, every syntax character escaped."""
+    escaped = "".join(f"\\{c}" if c in MARKDOWN_SPECIAL else c for c in " ".join(str(text).split()))
+    return html.escape(escaped, quote=False)
+
+
+def markdown_code(text: str) -> str:
+    """``text`` as a one-line code span, fenced by more backticks than it holds."""
+    text = " ".join(str(text).split())
+    ticks = "`" * (max((len(run) for run in re.findall(r"`+", text)), default=0) + 1)
+    return f"{ticks} {text} {ticks}" if "`" in text else f"`{text}`"
+
+
 def _intro(title: str, doc: dict, what: str) -> nbformat.NotebookNode:
     data = doc["data"]
     return new_markdown_cell(
-        f"# Reproduce: {title}\n\n"
-        f"Data `{data['path']}` (SHA-256 `{data['sha256']}`), seed {doc['seed']}. "
+        f"# Reproduce: {markdown_text(title)}\n\n"
+        f"Data {markdown_code(data['path'])} (SHA-256 `{data['sha256']}`), seed {doc['seed']}. "
         f"Running every cell {what} with the same seed and settings, writing nothing, and "
         "compares the key numbers with the recorded run's file in this folder."
     )

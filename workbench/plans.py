@@ -33,6 +33,7 @@ the platform and the start time.
 
 from __future__ import annotations
 
+import numbers
 import platform
 import tomllib
 from dataclasses import dataclass, field
@@ -42,6 +43,10 @@ from pathlib import Path
 from typing import Any
 
 from workbench.errors import OptionError
+
+# Seeds run from 0 to 2^63 - 1: NumPy's SeedSequence takes any whole number >= 0
+# and the run history stores the seed as a signed 64-bit SQLite INTEGER.
+MAX_SEED = 2**63 - 1
 
 # Top-level keys a plan may hold; anything else is a typo worth one clear line.
 PLAN_KEYS = ("data", "recipe", "designs", "seed", "sbc", "relax", "options", "priors",
@@ -214,7 +219,7 @@ def plan_from_dict(raw: dict, path: Path | None = None) -> Plan:
         path=path,
         data=data,
         designs=designs,
-        seed=_whole(raw.get("seed", 1), f"{where} seed"),
+        seed=check_seed(raw.get("seed", 1), f"{where} seed"),
         sbc=_whole(raw.get("sbc", 0), f"{where} sbc"),
         relax=_flag(raw.get("relax", True), f"{where} relax"),
         sampling=dict(sampling),
@@ -273,6 +278,13 @@ def _whole(value, where: str, minimum: int = 0) -> int:
     if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
         raise OptionError(f"{where}: expected a whole number >= {minimum}; found {value!r}")
     return value
+
+
+def check_seed(value, where: str = "--seed") -> int:
+    """A seed the random streams and the run history both accept (0 to 2^63 - 1)."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or not 0 <= value <= MAX_SEED:
+        raise OptionError(f"{where}: expected a whole number from 0 to 2^63 - 1; found {value!r}")
+    return int(value)
 
 
 def _probability(value, where: str) -> float:

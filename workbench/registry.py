@@ -16,10 +16,9 @@ import os
 import sys
 import traceback
 from dataclasses import dataclass, field, replace
-from difflib import get_close_matches
 from pathlib import Path
 
-from workbench.errors import OptionError
+from workbench.errors import OptionError, did_you_mean
 from workbench.recipe import Recipe
 
 ENV_VAR = "WORKBENCH_RECIPES"
@@ -44,8 +43,7 @@ class Registry:
     def get(self, name: str) -> Recipe:
         if name in self.recipes:
             return self.recipes[name]
-        close = get_close_matches(name, list(self.recipes), n=1)
-        hint = f"; did you mean '{close[0]}'?" if close else ""
+        hint = did_you_mean(name, self.recipes)
         broken = [p for p in self.problems if Path(p.path).stem.replace("_", "-") == name]
         if broken:
             raise OptionError(f"recipe '{name}' failed to load: {broken[0]}")
@@ -84,7 +82,7 @@ def _load_folder(folder: Path, registry: Registry) -> None:
             continue
         try:
             module = load_module(path)
-        except Exception as err:  # any error in user code: report it, keep going
+        except (Exception, SystemExit) as err:  # any error in user code, or sys.exit: report it, keep going
             registry.problems.append(_problem(path, err))
             continue
         recipe = getattr(module, "RECIPE", None)
@@ -145,4 +143,6 @@ def _problem(path: Path, err: BaseException) -> LoadProblem:
     for frame in traceback.extract_tb(err.__traceback__):
         if Path(frame.filename).resolve() == path.resolve():
             line = frame.lineno
+    if isinstance(err, SystemExit):
+        return LoadProblem(str(path), line, f"called sys.exit({err.code!r}) while loading")
     return LoadProblem(str(path), line, f"{type(err).__name__}: {err}")

@@ -37,6 +37,23 @@ FILE_MODE = _file_mode()
 
 # --- files -------------------------------------------------------------------
 
+# A temporary file of atomic_write is ".NAME.XXXXXXXX.tmp" (mkstemp's eight
+# random characters); a killed run can leave one behind, a rerun removes it.
+TEMP_SUFFIX = ".tmp"
+TEMP_PATTERN = re.compile(r"\..+\.[a-z0-9_]{8}" + re.escape(TEMP_SUFFIX))
+
+
+def clear_temporary(folder: str | Path) -> list[Path]:
+    """Remove the temporary files an earlier, killed run left in ``folder`` (only
+    names of :func:`atomic_write`'s pattern); returns what was removed."""
+    removed = []
+    for item in Path(folder).iterdir():
+        if TEMP_PATTERN.fullmatch(item.name) and item.is_file() and not item.is_symlink():
+            item.unlink(missing_ok=True)
+            removed.append(item)
+    return removed
+
+
 
 def atomic_write(path: str | Path, data: bytes | str) -> Path:
     """Write ``data`` to ``path`` through a temporary file and a rename."""
@@ -55,7 +72,7 @@ def atomic_write_with(path: str | Path, write) -> Path:
     """Let ``write(temp_path)`` produce the file, then rename it into place."""
     raise_if_interrupted()
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TEMP_SUFFIX, dir=path.parent)
     os.close(fd)
     try:
         write(tmp)
@@ -72,10 +89,15 @@ def run_folder(out: str | None, label: str, force: bool, root: str | Path = "rep
     """The folder a run writes into.
 
     With ``out``: that folder, refused if it already holds a run unless
-    ``force``. Without: a new folder under ``root`` named by time and design.
+    ``force``; temporary files of a killed earlier run are removed first. Without: a new folder under ``root`` named by time and design.
     """
     if out:
         folder = Path(out)
+        if folder.exists() and not folder.is_dir():
+            raise OutputError(f"output folder {str(folder)!r}: expected a folder (new or empty); "
+                              f"found a file")
+        if folder.exists():
+            clear_temporary(folder)
         if folder.exists() and any(folder.iterdir()) and not force:
             raise OutputError(
                 f"output folder {str(folder)!r} already holds files; expected a new or empty "
@@ -91,7 +113,7 @@ def run_folder(out: str | None, label: str, force: bool, root: str | Path = "rep
             folder = Path(root) / f"{stamp}-{slug}-{n}"
     try:
         folder.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
+    except OSError as err:  # e.g. a file where a parent folder should be
         raise OutputError(f"output folder {str(folder)!r}: cannot create it ({err.strerror})") from None
     return folder
 

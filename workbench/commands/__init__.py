@@ -25,6 +25,29 @@ def whole_number(text: str) -> int:
     return value
 
 
+def positive_number(text: str) -> int:
+    """A whole number >= 1 (a count of lines, replicates, processes)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1; found {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1; found {text!r}")
+    return value
+
+
+def seed_number(text: str) -> int:
+    """A seed on the command line; the range is the one plan files and the API accept."""
+    from workbench.errors import OptionError
+    from workbench.plans import check_seed
+
+    try:
+        return check_seed(int(text), "seed")
+    except (ValueError, OptionError):
+        raise argparse.ArgumentTypeError(
+            f"expected a whole number from 0 to 2^63 - 1; found {text!r}") from None
+
+
 def probability(text: str) -> float:
     try:
         value = float(text)
@@ -37,7 +60,7 @@ def probability(text: str) -> float:
 
 def add_run_arguments(p: argparse.ArgumentParser) -> None:
     """Options every command that fits models shares."""
-    p.add_argument("--seed", type=whole_number, default=1, help="seed for every random step (default 1)")
+    p.add_argument("--seed", type=seed_number, default=1, help="seed for every random step (default 1)")
     p.add_argument("--out", help="output folder (default: a new folder under reports/)")
     p.add_argument("--force", action="store_true", help="allow writing into a folder that holds files")
     p.add_argument("--quiet", action="store_true", help="no progress output")

@@ -2,9 +2,9 @@
 
 Rerunning the same command with the same ``--out`` continues from the
 folder's checkpoint (no ``--force`` needed: finished replicates equal what a
-rerun would compute). ``--force`` only lets a new calibration start in a
-folder holding other files; another calibration's checkpoint is never
-deleted.
+rerun would compute). ``--force`` lets a new calibration start in a folder
+holding other files, and another ``--sims`` replace a finished
+calibration.json; another calibration's checkpoint is never deleted.
 """
 
 from __future__ import annotations
