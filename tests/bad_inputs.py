@@ -42,6 +42,21 @@ def check_table(text: str | bytes, name: str = "t.csv") -> dict:
 
 
 CASES = [
+    # --- priors that PyMC would accept and the sampler would crash on or misuse
+    Case("prior argument out of its domain", (*CHECK, "--prior", "spread=lognormal(-4,-0.5)"),
+         "--prior spread: sigma of lognormal must be a number above 0; found -0.5", TABLE),
+    Case("prior with too few arguments", (*CHECK, "--prior", "spread=lognormal(-4)"),
+         "lognormal takes 2 argument(s) (mu, sigma); found 1", TABLE),
+    Case("prior off the parameter's support", (*CHECK, "--prior", "spread=normal(0,1)"),
+         "spread lives on (0, inf); normal(0,1) puts draws outside it", TABLE),
+    Case("prior off the parameter's support", (*CHECK, "--prior", "extra_failure=halfnormal(1)"),
+         "extra_failure lives on (0, 1)", TABLE),
+    Case("prior bounds in the wrong order", (*CHECK, "--prior", "spread=uniform(2,1)"),
+         "uniform(lower, upper) needs lower < upper", TABLE),
+    Case("prior off the parameter's support", ("check", "{tmp}/plan.toml"),
+         "spread lives on (0, inf)",
+         {**TABLE, "plan.toml": 'data = "t.csv"\nrecipe = "threshold-geometry"\n[options]\n'
+                                'clearance = 0.2\n[priors]\nspread = "normal(0,1)"\n'}),
     # --- data lost or left behind
     Case("a finished result is kept",
          ("calibrate", "threshold-geometry", "--data", "{tmp}/t.csv", "--set", "clearance=0.2",

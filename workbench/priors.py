@@ -15,6 +15,29 @@ from functools import cache
 
 from workbench.errors import OptionError
 
+# Where a prior's draws may fall.
+REAL, POSITIVE, UNIT = "real", "positive", "unit"
+_SUPPORT_TEXT = {REAL: "the whole real line", POSITIVE: "(0, inf)", UNIT: "(0, 1)"}
+# The positional arguments of the priors people write, each with its domain
+# ("real" or "positive"), and the support of the draws (PyMC's parametrisation).
+SIGNATURES: dict[str, tuple[tuple[tuple[str, str], ...], str]] = {
+    "normal": ((("mu", REAL), ("sigma", POSITIVE)), REAL),
+    "studentt": ((("nu", POSITIVE), ("mu", REAL), ("sigma", POSITIVE)), REAL),
+    "cauchy": ((("alpha", REAL), ("beta", POSITIVE)), REAL),
+    "laplace": ((("mu", REAL), ("b", POSITIVE)), REAL),
+    "logistic": ((("mu", REAL), ("s", POSITIVE)), REAL),
+    "halfnormal": ((("sigma", POSITIVE),), POSITIVE),
+    "halfstudentt": ((("nu", POSITIVE), ("sigma", POSITIVE)), POSITIVE),
+    "halfcauchy": ((("beta", POSITIVE),), POSITIVE),
+    "lognormal": ((("mu", REAL), ("sigma", POSITIVE)), POSITIVE),
+    "exponential": ((("lam", POSITIVE),), POSITIVE),
+    "gamma": ((("alpha", POSITIVE), ("beta", POSITIVE)), POSITIVE),
+    "inversegamma": ((("alpha", POSITIVE), ("beta", POSITIVE)), POSITIVE),
+    "weibull": ((("alpha", POSITIVE), ("beta", POSITIVE)), POSITIVE),
+    "beta": ((("alpha", POSITIVE), ("beta", POSITIVE)), UNIT),
+    "uniform": ((("lower", REAL), ("upper", REAL)), REAL),
+}
+
 _SPEC = re.compile(r"^\s*([A-Za-z][A-Za-z0-9]*)\s*\((.*)\)\s*$")
 _NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$|^[+-]?inf$")
 
@@ -80,6 +103,7 @@ def parse_prior(text: str, where: str = "prior") -> PriorSpec:
             raise OptionError(f"{where}: arguments of {dist} must be numbers; found {piece!r}")
         args.append(value)
     spec = PriorSpec(dist, tuple(args))
+    _check_arguments(spec, text, where)
     try:
         spec.distribution()
     except Exception as err:  # PyMC says why the arguments do not fit
@@ -93,3 +117,56 @@ def parse_override(text: str) -> tuple[str, PriorSpec]:
     if not sep or not name.strip():
         raise OptionError(f"--prior: expected PARAM=DIST(ARGS); found {text!r}")
     return name.strip(), parse_prior(spec, where=f"--prior {name.strip()}")
+
+
+def _check_arguments(spec: PriorSpec, text: str, where: str) -> None:
+    """Argument count and domains of a prior PyMC would accept and then fail on."""
+    if spec.dist not in SIGNATURES:
+        return
+    params, _ = SIGNATURES[spec.dist]
+    names = ", ".join(name for name, _ in params)
+    example = f"e.g. {spec.dist}({','.join('0' if d == REAL else '1' for _, d in params)})"
+    if spec.dist == "uniform":
+        example = "e.g. uniform(0,1)"
+    if len(spec.args) != len(params):
+        raise OptionError(
+            f"{where}: {spec.dist} takes {len(params)} argument(s) ({names}); found "
+            f"{len(spec.args)} in {text.strip()!r} ({example})")
+    for (name, domain), value in zip(params, spec.args):
+        if domain == POSITIVE and not (value > 0 and math.isfinite(value)):
+            raise OptionError(f"{where}: {name} of {spec.dist} must be a number above 0; found "
+                              f"{_fmt(value)} in {text.strip()!r} ({example})")
+        if domain == REAL and not math.isfinite(value):
+            raise OptionError(f"{where}: {name} of {spec.dist} must be a finite number; found "
+                              f"{_fmt(value)} in {text.strip()!r} ({example})")
+    if spec.dist == "uniform" and not spec.args[0] < spec.args[1]:
+        raise OptionError(f"{where}: uniform(lower, upper) needs lower < upper; found "
+                          f"{text.strip()!r}")
+
+
+def support(spec: PriorSpec) -> tuple[float, float] | None:
+    """The interval a prior's draws lie in (None for a distribution not in SIGNATURES)."""
+    if spec.dist not in SIGNATURES:
+        return None
+    if spec.dist == "uniform":
+        return spec.args[0], spec.args[1]
+    return {REAL: (-math.inf, math.inf), POSITIVE: (0.0, math.inf), UNIT: (0.0, 1.0)}[
+        SIGNATURES[spec.dist][1]]
+
+
+def check_support(override: PriorSpec, default: PriorSpec, parameter: str, where: str) -> None:
+    """Refuse an override whose draws leave the parameter's support.
+
+    The parameter's support is that of its default prior (a positive spread,
+    a share in (0, 1)): a prior with mass outside it gives draws the model
+    cannot use.
+    """
+    inner, outer = support(override), support(default)
+    if inner is None or outer is None or (outer[0] <= inner[0] and inner[1] <= outer[1]):
+        return
+    kind = next((k for k, v in {REAL: (-math.inf, math.inf), POSITIVE: (0.0, math.inf),
+                                UNIT: (0.0, 1.0)}.items() if v == outer), None)
+    needs = _SUPPORT_TEXT.get(kind, f"[{_fmt(outer[0])}, {_fmt(outer[1])}]")
+    raise OptionError(
+        f"{where}: {parameter} lives on {needs}; {override} puts draws outside it "
+        f"(expected a prior on {needs}, e.g. {default})")

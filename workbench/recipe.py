@@ -364,7 +364,7 @@ def _design_from_source(source: str, name: str, options: dict, priors: dict) -> 
 
 def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str, str]) -> Design:
     """Bind a recipe to parsed options and checked prior overrides."""
-    from workbench.priors import parse_prior
+    from workbench.priors import check_support, parse_prior
 
     values = recipe.read_options(options)
     known = {p.name for p in recipe.parameters}
@@ -376,5 +376,8 @@ def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str,
             close = get_close_matches(name, known, n=1)
             hint = f"; did you mean '{close[0]}'?" if close else f" (parameters: {', '.join(sorted(known))})"
             raise OptionError(f"--prior: recipe '{recipe.name}' has no parameter '{name}'{hint}")
-        checked[name] = str(parse_prior(str(text), where=f"--prior {name}"))
+        spec = parse_prior(str(text), where=f"--prior {name}")
+        default = next(p.prior for p in recipe.parameters if p.name == name)
+        check_support(spec, parse_prior(default, where=f"prior of {name}"), name, f"--prior {name}")
+        checked[name] = str(spec)
     return Design(recipe, values, checked)
