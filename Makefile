@@ -23,7 +23,7 @@ $(STAMP): pyproject.toml | $(PY)
 install: $(STAMP)
 
 demo: $(STAMP)
-	$(VENV)/bin/workbench demo
+	$(VENV)/bin/workbench demo --out reports/demo --force
 
 test: $(STAMP)
 	$(PY) -m pytest -q
