@@ -66,6 +66,26 @@ def test_rhat_and_ess_in_the_summary_equal_arviz_on_the_written_tree(checked):
     assert doc["computation"]["min_ess_tail"] == pytest.approx(float(az.ess(post, method="tail")["spread"]), rel=1e-9)
 
 
+def test_parameter_estimates_in_the_summary_equal_arviz_on_the_written_tree(checked):
+    # Reference library: ArviZ's mean, sd and rank-normalised split R-hat
+    # (Vehtari et al. 2021) on the very DataTree the run wrote.
+    doc = json.loads((checked / "summary.json").read_text())
+    tree = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")
+    post = tree["posterior"].to_dataset()[["spread"]]
+    spread = doc["parameters"]["spread"]
+    assert set(spread) == {"mean", "sd", "low", "high", "rhat", "ess_bulk", "ess_tail"}
+    assert spread["mean"] == pytest.approx(float(az.mean(post, round_to="none")["spread"]), rel=1e-9)
+    assert spread["sd"] == pytest.approx(float(az.std(post, round_to="none")["spread"]), rel=1e-9)
+    assert spread["rhat"] == pytest.approx(float(az.rhat(post)["spread"]), rel=1e-9)
+    assert spread["low"] < spread["mean"] < spread["high"]
+
+
+def test_report_shows_the_estimates_after_the_diagnosis(checked):
+    page = (checked / "report.html").read_text()
+    assert page.index('id="diagnosis"') < page.index('id="estimates"') < page.index('id="evidence"')
+    assert "<code>spread</code>" in page[page.index('id="estimates"'):page.index('id="evidence"')]
+
+
 def test_written_tree_keeps_every_group(checked):
     tree = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")
     assert {"prior", "prior_predictive", "posterior", "sample_stats", "log_likelihood", "log_prior",

@@ -86,6 +86,7 @@ def check(
     cache: bool | str | Path | None = None,
     history: bool | str | Path | None = True,
     plan_file: str | Path | None = None,
+    truth: Mapping[str, Any] | None = None,
 ) -> CheckResult:
     """Run the full check of a design on a table and (by default) write its files.
 
@@ -93,6 +94,8 @@ def check(
     folder; a path: that folder). ``history`` appends a row to the run
     history when files are written (True: the default history file; False:
     none). ``plan_file`` names the plan the run came from, for the manifest.
+    ``truth`` gives the true parameter values of simulated data (a demo), which
+    the report shows beside the estimates.
     """
     if seed < 0:
         raise OptionError(f"--seed: expected an integer >= 0; found {seed}")
@@ -122,7 +125,7 @@ def check(
               "sampling": settings.to_dict()}))
     result = CheckResult(run, doc, folder)
     if write:
-        result.files = write_check(result, command)
+        result.files = write_check(result, command, truth)
         if history:
             from workbench import history as run_history
 
@@ -156,7 +159,8 @@ def _api_command(target, data, options, priors, seed, sbc) -> str:
     return " ".join(parts)
 
 
-def write_check(result: CheckResult, command: str) -> dict[str, Path]:
+def write_check(result: CheckResult, command: str, truth: Mapping[str, Any] | None = None
+                ) -> dict[str, Path]:
     """report.html, summary.json, posterior.nc and notebook.ipynb, each atomically."""
     from workbench import notebook
     from workbench.report import html as report_html
@@ -167,7 +171,7 @@ def write_check(result: CheckResult, command: str) -> dict[str, Path]:
         "summary": writers.write_json(folder / "summary.json", result.summary),
         "posterior": writers.write_posterior(folder / "posterior.nc", run.fit.idata),
         "notebook": writers.atomic_write(folder / "notebook.ipynb", notebook.for_check(run, result.summary)),
-        "report": writers.atomic_write(folder / "report.html", report_html.render(run, result.summary, command)),
+        "report": writers.atomic_write(folder / "report.html", report_html.render(run, result.summary, command, truth)),
     }
     return files
 

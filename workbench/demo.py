@@ -34,7 +34,7 @@ def run(recipe_name: str = "threshold-geometry", *, seed: int = 1, out=None, for
     say(f"true values: {scenario.truth}")
     return api.check(recipe_name, data_path, options=scenario.options, seed=seed, out=folder,
                      force=True, settings=settings, recipe_folders=recipe_folders, say=say,
-                     progress=progress,
+                     progress=progress, truth=scenario.truth,
                      command=f"workbench check {recipe_name} --data {data_path} "
                              + " ".join(f"--set {k}={v}" for k, v in scenario.options.items())
                              + f" --seed {seed}")

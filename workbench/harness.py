@@ -18,7 +18,7 @@ from importlib import metadata
 from multiprocessing import get_context
 from typing import Any, Callable
 
-from workbench import checks, engine, interrupts, verdicts
+from workbench import checks, engine, estimates, interrupts, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -194,6 +194,7 @@ def run_check(
     say("running checks")
     findings = checks.run_all(context)
     context.extras["computation"] = computation_summary(main.idata)
+    context.extras["parameters"] = estimates.parameters(main.idata)
     derived = getattr(getattr(design, "recipe", None), "derived", None)
     if derived is not None:
         context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))

@@ -143,8 +143,23 @@ def figures(run) -> dict[str, dict]:
     return out
 
 
-def render(run, summary: dict, command: str = "") -> str:
-    """The report as one HTML string."""
+def estimate_rows(run, summary: dict, truth=None) -> list[dict]:
+    """The parameter table: each estimate with its true value when ``truth`` names it."""
+    from workbench.estimates import beside_truth
+
+    estimates = summary.get("parameters") or {}
+    true = beside_truth(run.fit.idata, estimates, truth) if truth else {}
+    rows = []
+    for label, e in estimates.items():
+        t = true.get(label)
+        outside = t is not None and e["low"] is not None and e["high"] is not None \
+            and not e["low"] <= t <= e["high"]
+        rows.append({"label": label, **e, "truth": t, "outside": outside})
+    return rows
+
+
+def render(run, summary: dict, command: str = "", truth=None) -> str:
+    """The report as one HTML string; ``truth`` holds the true values of simulated data."""
     with plots.literal_text():  # group and outcome names are user text, not mathtext
         figs = figures(run)
     recipe = getattr(run.design, "recipe", None)
@@ -172,6 +187,8 @@ def render(run, summary: dict, command: str = "") -> str:
         design_label=run.design.label(),
         summary=summary,
         verdicts=verdicts,
+        estimates=estimate_rows(run, summary, truth),
+        has_truth=bool(truth),
         caution=CAUTION if recipe is not None and recipe.people_decisions else "",
         fit_figs=fit_figs,
         sampler_figs=sampler_figs,
