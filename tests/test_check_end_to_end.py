@@ -86,6 +86,17 @@ def test_report_shows_the_estimates_after_the_diagnosis(checked):
     assert "<code>spread</code>" in page[page.index('id="estimates"'):page.index('id="evidence"')]
 
 
+def test_report_says_the_result_in_one_line_before_any_table(checked):
+    page = (checked / "report.html").read_text()
+    start = page.index('id="headline"')
+    line = page[start:page.index("</p>", start)]
+    assert start < page.index("<table")
+    if "Nothing is broken or doubtful" in line:
+        assert "Not checked: implementation" in line
+    else:
+        assert "Of 6 assumptions" in line and "Next step:" in line
+
+
 def test_written_tree_keeps_every_group(checked):
     tree = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")
     assert {"prior", "prior_predictive", "posterior", "sample_stats", "log_likelihood", "log_prior",

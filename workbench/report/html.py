@@ -14,7 +14,7 @@ import jinja2
 import numpy as np
 
 from workbench.report import plots
-from workbench.verdicts import BROKEN, DOUBTFUL, HOLDS, UNCHECKED
+from workbench.verdicts import BROKEN, DOUBTFUL, HOLDS, UNCHECKED, headline
 
 TEMPLATES = Path(__file__).parent / "templates"
 
@@ -187,6 +187,8 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
         design_label=run.design.label(),
         summary=summary,
         verdicts=verdicts,
+        headline=headline(run.verdicts),
+        worst=verdicts[0]["verdict"] if verdicts else HOLDS,
         estimates=estimate_rows(run, summary, truth),
         has_truth=bool(truth),
         caution=CAUTION if recipe is not None and recipe.people_decisions else "",

@@ -155,5 +155,6 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
 
 def _demote(verdict: Verdict, cause: Verdict, why: str) -> None:
     verdict.verdict = DOUBTFUL
+    verdict.symptom_of = cause.key
     verdict.advice = f"Revisit after addressing '{cause.key}': {why}."
     verdict.strength = 0.0
