@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 
 import arviz as az
 import numpy as np
@@ -95,6 +96,24 @@ def test_report_says_the_result_in_one_line_before_any_table(checked):
         assert "Not checked: implementation" in line
     else:
         assert "Of 6 assumptions" in line and "Next step:" in line
+
+
+def test_evidence_names_checks_in_words_and_the_summary_keeps_their_ids(checked):
+    page = (checked / "report.html").read_text()
+    doc = json.loads((checked / "summary.json").read_text())
+    checks = {e["check"] for a in doc["assumptions"] for e in a["evidence"]}
+    assert "computation:rhat" in checks
+    evidence = page[page.index('id="evidence"'):page.index('id="fit"')]
+    assert "<td title=\"computation:rhat\">Chains agree (R-hat)</td>" in evidence
+    assert "Prior predictive mean of successes" in evidence
+
+
+def test_evidence_numbers_never_break_mid_number(checked):
+    page = (checked / "report.html").read_text()
+    assert "td.n { white-space:nowrap;" in page
+    tables = "".join(re.findall(r'<table class="evidence">.*?</table>', page, flags=re.S))
+    assert 'class="n">' in tables
+    assert not re.search(r"\de[+-]\d", tables) and "p = 0)" not in tables
 
 
 def test_written_tree_keeps_every_group(checked):

@@ -221,6 +221,9 @@ class Recipe:
     people_decisions: bool = False
     source: str = ""
     approximate_likelihood: str | Callable[["Dataset"], str] = ""
+    # How the report names each observed variable, from the table's columns
+    # ({"y": "successes"}); a function of the options when the columns are options.
+    outcome_columns: Mapping[str, str] | Callable[[dict], Mapping[str, str]] | None = None
 
     def read_options(self, given: Mapping[str, Any]) -> dict[str, Any]:
         """Parse ``--set`` values against the declared options, filling defaults."""
@@ -344,6 +347,12 @@ class Design:
         parts += [f"{k}={option_text(v)}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
+
+
+def outcome_words(design) -> dict[str, str]:
+    """The table columns behind each observed variable of ``design`` ({} when unknown)."""
+    named = getattr(getattr(design, "recipe", None), "outcome_columns", None) or {}
+    return dict(named(design.options) if callable(named) else named)
 
 
 def likelihood_approximation(design, data) -> str:
