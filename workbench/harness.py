@@ -99,7 +99,7 @@ def _layout(model) -> tuple:
 def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=None, **kwargs) -> engine.Fit:
     """Fit ``design`` (optionally relaxed) to ``data``, reusing a compiled model when one fits."""
     fresh = design.build(data, relaxation)
-    key = (design.label(), getattr(relaxation, "parameter", None), _layout(fresh))
+    key = (design.key(), getattr(relaxation, "parameter", None), _layout(fresh))
     if key not in _COMPILED:
         _COMPILED[key] = (fresh, engine.Sampler(fresh))
         return engine.fit(fresh, seed, settings, sampler=_COMPILED[key][1], **kwargs)
@@ -185,7 +185,7 @@ def run_check(
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     seeds = engine.seed_stream(seed, "main", "relaxations")
     main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
-                                  label=design.name, say=say)
+                                  label=design.label(), say=say)
     relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
                               fitter, progress) if relax else {}
     calibration = calibrate() if calibrate else None

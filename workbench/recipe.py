@@ -293,6 +293,9 @@ class Design:
     recipe: Recipe
     options: dict[str, Any]
     priors: dict[str, str]
+    # The options the user wrote, in the order written: the label keeps them
+    # even where they repeat a default (timing-curve:family=weibull).
+    typed: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -338,13 +341,30 @@ class Design:
     def __reduce__(self):
         # Recipes hold functions of modules loaded by path; a worker process
         # rebuilds the design by loading the same file.
-        return (_design_from_source, (self.recipe.source, self.recipe.name, self.options, self.priors))
+        return (_design_from_source, (self.recipe.source, self.recipe.name, self.options, self.priors,
+                                      self.typed))
 
     def label(self) -> str:
-        """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
+        """The design as the user wrote it, e.g. ``timing-curve:family=weibull``.
+
+        The options typed come first in their order, then any other option
+        that differs from its default, then the prior overrides.
+        """
+        shown = [k for k in self.typed if k in self.options] + \
+            [k for k in self._changed() if k not in self.typed]
+        return self._text(shown)
+
+    def key(self) -> str:
+        """The design's identity whatever way it was written: options that differ
+        from their defaults, in name order (fit caches and duplicate checks)."""
+        return self._text(self._changed())
+
+    def _changed(self) -> list[str]:
         defaults = {o.name: o.default for o in self.recipe.options}
-        parts = [self.recipe.name]
-        parts += [f"{k}={option_text(v)}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
+        return [k for k, v in sorted(self.options.items()) if v != defaults.get(k)]
+
+    def _text(self, names: list[str]) -> str:
+        parts = [self.recipe.name] + [f"{k}={option_text(self.options[k])}" for k in names]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
 
@@ -361,10 +381,11 @@ def likelihood_approximation(design, data) -> str:
     return note(data) if callable(note) else note
 
 
-def _design_from_source(source: str, name: str, options: dict, priors: dict) -> "Design":
+def _design_from_source(source: str, name: str, options: dict, priors: dict,
+                        typed: tuple[str, ...] = ()) -> "Design":
     from workbench.registry import recipe_from_file
 
-    return Design(recipe_from_file(source, name), options, priors)
+    return Design(recipe_from_file(source, name), options, priors, typed)
 
 
 def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str, str]) -> Design:
@@ -382,4 +403,4 @@ def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str,
             hint = f"; did you mean '{close[0]}'?" if close else f" (parameters: {', '.join(sorted(known))})"
             raise OptionError(f"--prior: recipe '{recipe.name}' has no parameter '{name}'{hint}")
         checked[name] = str(parse_prior(str(text), where=f"--prior {name}"))
-    return Design(recipe, values, checked)
+    return Design(recipe, values, checked, tuple(k for k in options if k in values))
