@@ -210,8 +210,9 @@ def prior_sensitivity(context: Context) -> list[Finding]:
                 check=f"prior_sensitivity:{label}",
                 value=float(ps[i]),
                 detail=(
-                    f"Power-scaling sensitivity of {label}: to the prior {ps[i]:.3f}, "
-                    f"to the likelihood {ls[i]:.3f}."
+                    f"Giving the prior more or less weight moves the posterior of {label} by "
+                    f"{ps[i]:.3f}; giving the data more or less weight moves it by {ls[i]:.3f} "
+                    f"(power-scaling distance)."
                 ),
                 numbers={"parameter": label, "prior": float(ps[i]), "likelihood": float(ls[i]),
                          # A model file writes its priors in code: --prior cannot change them.
