@@ -262,6 +262,7 @@ RECIPE = Recipe(
     build_model=build_model,
     observed=cohorts.observed,
     outcome_names=("y",),
+    outcome_columns=lambda options: {"y": " and ".join(options["outcomes"]) + " counts"},
     covariate="age",
     figure=figure,
     derived=derived,

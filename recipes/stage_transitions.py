@@ -936,6 +936,7 @@ RECIPE = Recipe(
     build_model=build_model,
     observed=observed,
     outcome_names=("y",),
+    outcome_columns={"y": "stage counts"},
     covariate="period",
     figure=figure,
     derived=derived,

@@ -390,6 +390,7 @@ RECIPE = Recipe(
     build_model=build_model,
     observed=observed,
     outcome_names=("y",),
+    outcome_columns={"y": "successes"},
     covariate="distance",
     figure=figure,
     demo=demo,

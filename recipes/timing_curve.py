@@ -223,6 +223,7 @@ RECIPE = Recipe(
     build_model=build_model,
     observed=cohorts.observed,
     outcome_names=("y",),
+    outcome_columns={"y": "events"},
     covariate="age",
     figure=figure,
     derived=derived,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 
 import arviz as az
 import numpy as np
@@ -64,6 +65,55 @@ def test_rhat_and_ess_in_the_summary_equal_arviz_on_the_written_tree(checked):
     assert doc["computation"]["max_rhat"] == pytest.approx(float(az.rhat(post)["spread"]), rel=1e-9)
     assert doc["computation"]["min_ess_bulk"] == pytest.approx(float(az.ess(post, method="bulk")["spread"]), rel=1e-9)
     assert doc["computation"]["min_ess_tail"] == pytest.approx(float(az.ess(post, method="tail")["spread"]), rel=1e-9)
+
+
+def test_parameter_estimates_in_the_summary_equal_arviz_on_the_written_tree(checked):
+    # Reference library: ArviZ's mean, sd and rank-normalised split R-hat
+    # (Vehtari et al. 2021) on the very DataTree the run wrote.
+    doc = json.loads((checked / "summary.json").read_text())
+    tree = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")
+    post = tree["posterior"].to_dataset()[["spread"]]
+    spread = doc["parameters"]["spread"]
+    assert set(spread) == {"mean", "sd", "low", "high", "rhat", "ess_bulk", "ess_tail"}
+    assert spread["mean"] == pytest.approx(float(az.mean(post, round_to="none")["spread"]), rel=1e-9)
+    assert spread["sd"] == pytest.approx(float(az.std(post, round_to="none")["spread"]), rel=1e-9)
+    assert spread["rhat"] == pytest.approx(float(az.rhat(post)["spread"]), rel=1e-9)
+    assert spread["low"] < spread["mean"] < spread["high"]
+
+
+def test_report_shows_the_estimates_after_the_diagnosis(checked):
+    page = (checked / "report.html").read_text()
+    assert page.index('id="diagnosis"') < page.index('id="estimates"') < page.index('id="evidence"')
+    assert "<code>spread</code>" in page[page.index('id="estimates"'):page.index('id="evidence"')]
+
+
+def test_report_says_the_result_in_one_line_before_any_table(checked):
+    page = (checked / "report.html").read_text()
+    start = page.index('id="headline"')
+    line = page[start:page.index("</p>", start)]
+    assert start < page.index("<table")
+    if "Nothing is broken or doubtful" in line:
+        assert "Not checked: implementation" in line
+    else:
+        assert "Of 6 assumptions" in line and "Next step:" in line
+
+
+def test_evidence_names_checks_in_words_and_the_summary_keeps_their_ids(checked):
+    page = (checked / "report.html").read_text()
+    doc = json.loads((checked / "summary.json").read_text())
+    checks = {e["check"] for a in doc["assumptions"] for e in a["evidence"]}
+    assert "computation:rhat" in checks
+    evidence = page[page.index('id="evidence"'):page.index('id="fit"')]
+    assert "<td title=\"computation:rhat\">Chains agree (R-hat)</td>" in evidence
+    assert "Prior predictive mean of successes" in evidence
+
+
+def test_evidence_numbers_never_break_mid_number(checked):
+    page = (checked / "report.html").read_text()
+    assert "td.n { white-space:nowrap;" in page
+    tables = "".join(re.findall(r'<table class="evidence">.*?</table>', page, flags=re.S))
+    assert 'class="n">' in tables
+    assert not re.search(r"\de[+-]\d", tables) and "p = 0)" not in tables
 
 
 def test_written_tree_keeps_every_group(checked):

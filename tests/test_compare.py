@@ -27,7 +27,7 @@ def doc(compared):
 
 
 def label(spec: str) -> str:
-    """The label the workbench gives a design spec (defaults are left out)."""
+    """The label the workbench gives a design spec."""
     from workbench.api import resolve_design
 
     s = plans.parse_design(spec)
@@ -42,17 +42,17 @@ def test_data_simulated_from_a_design_rank_it_first_beyond_two_standard_errors(d
     first, second = doc["comparison"]
     assert first["design"] == true and second["design"] == wrong
     assert doc["best"] == true
-    assert -second["elpd_diff"] > SE_MULTIPLE * second["dse"] > 0
+    assert second["gap"] > SE_MULTIPLE * second["gap_se"] > 0
 
 
 def test_the_statement_gives_the_difference_with_its_standard_error(doc):
     second = doc["comparison"][1]
     assert doc["statement"].startswith(f"{doc['best']} predicts best")
-    assert f"{-second['elpd_diff']:.1f} (SE {second['dse']:.1f})" in doc["statement"]
+    assert f"{second['gap']:.1f} (SE {second['gap_se']:.1f})" in doc["statement"]
 
 
 def test_stacking_weights_favour_the_true_design_and_sum_to_one(doc):
-    weights = {r["design"]: r["weight"] for r in doc["comparison"]}
+    weights = {r["design"]: r["stacking_weight"] for r in doc["comparison"]}
     assert sum(weights.values()) == pytest.approx(1.0)
     assert weights[doc["best"]] > 0.5
 
@@ -64,8 +64,8 @@ def test_difference_standard_error_is_that_of_the_pointwise_differences(doc):
     first, second = doc["comparison"]
     a = np.asarray(doc["pointwise"]["elpd"][first["design"]])
     b = np.asarray(doc["pointwise"]["elpd"][second["design"]])
-    assert second["elpd_diff"] == pytest.approx(b.sum() - a.sum(), rel=1e-9)
-    assert second["dse"] == pytest.approx(np.sqrt(a.size * np.var(a - b, ddof=1)), rel=0.05)
+    assert second["gap"] == pytest.approx(a.sum() - b.sum(), rel=1e-9)
+    assert second["gap_se"] == pytest.approx(np.sqrt(a.size * np.var(a - b, ddof=1)), rel=0.05)
 
 
 def test_pointwise_terms_sit_at_each_cohorts_age(doc):
@@ -128,7 +128,10 @@ def test_corrupt_cached_fit_is_detected_refitted_and_gives_the_same_numbers(comp
     from workbench.compare import compare
     from workbench.fitcache import CorruptFitWarning
 
-    wrong = label(shared_runs.WRONG_DESIGN)
+    from workbench.api import resolve_design
+
+    spec = plans.parse_design(shared_runs.WRONG_DESIGN)
+    wrong = resolve_design(spec.target, spec.options, spec.priors).key()
     sidecars = [json.loads(p.read_text()) for p in shared_runs.cache_folder().glob("*.json")]
     keys = [s["key"] for s in sidecars if s["fields"]["design"] == wrong]
     assert len(keys) == 1
@@ -150,11 +153,12 @@ def test_corrupt_cached_fit_is_detected_refitted_and_gives_the_same_numbers(comp
 
 
 def rows(*diffs_and_se):
-    out = [{"design": "A", "rank": 0, "elpd_diff": 0.0, "dse": 0.0, "weight": 0.6, "within": True,
-            "bad_pareto_k": []}]
+    out = [{"design": "A", "place": 1, "gap": 0.0, "gap_se": 0.0, "stacking_weight": 0.6,
+            "level_with_best": True, "high_k_rows": []}]
     for i, (diff, se) in enumerate(diffs_and_se, start=1):
-        out.append({"design": "BCD"[i - 1], "rank": i, "elpd_diff": diff, "dse": se, "weight": 0.4 / len(diffs_and_se),
-                    "within": too_close_to_call(diff, se), "bad_pareto_k": []})
+        out.append({"design": "BCD"[i - 1], "place": i + 1, "gap": -diff, "gap_se": se,
+                    "stacking_weight": 0.4 / len(diffs_and_se),
+                    "level_with_best": too_close_to_call(-diff, se), "high_k_rows": []})
     return out
 
 
@@ -198,6 +202,50 @@ def test_design_text_reads_options_and_prior_overrides():
 def test_design_text_without_key_value_is_one_line_error():
     with pytest.raises(OptionError, match="expected KEY=VALUE or PARAM~DIST"):
         plans.parse_design("timing-curve:weibull")
+
+
+def test_each_comparison_row_gives_the_gap_to_the_best_and_its_se(doc):
+    assert set(doc["comparison"][0]) == {"design", "place", "elpd", "elpd_se", "gap", "gap_se",
+                                         "level_with_best", "stacking_weight", "p_loo", "high_k_rows",
+                                         "caution"}
+    assert [r["place"] for r in doc["comparison"]] == [1, 2]
+    assert doc["comparison"][0]["gap"] == 0
+
+
+def test_the_comparison_page_names_its_columns_in_words_and_no_library(compared):
+    page = (compared / "compare.html").read_text()
+    assert "Gap to the best" in page and "SE of the gap" in page
+    assert "ArviZ:" not in page and "elpd_diff" not in page
+
+
+def test_a_design_label_keeps_the_options_as_typed():
+    assert label("timing-curve:family=weibull") == "timing-curve:family=weibull"
+    assert label("timing-curve:eventual=all:family=gamma") == "timing-curve:eventual=all:family=gamma"
+
+
+def test_the_comparison_names_designs_as_typed(doc):
+    assert [d["label"] for d in doc["designs"]] == [shared_runs.TRUE_DESIGN, shared_runs.WRONG_DESIGN]
+    assert doc["best"] == shared_runs.TRUE_DESIGN
+
+
+def test_a_design_written_with_and_without_its_defaults_is_given_twice(capsys):
+    from workbench.cli import main
+
+    code = main(["compare", "--data", str(shared_runs.timing_csv()), "timing-curve",
+                 "timing-curve:family=weibull", "--quiet"])
+    assert code == 2
+    assert "design 'timing-curve' is given twice" in capsys.readouterr().err
+
+
+def test_a_cached_fit_is_reported_under_the_design_as_typed(compared):
+    import workbench
+
+    said = []
+    workbench.check("timing-curve", shared_runs.timing_csv(),
+                    options={"family": "weibull", "eventual": "estimate"}, seed=2, relax=False,
+                    settings=engine.Settings(**shared_runs.TIMING_SAMPLING), write=False,
+                    cache=shared_runs.cache_folder(), say=said.append)
+    assert any(line.startswith(f"{shared_runs.TRUE_DESIGN}: reusing the cached fit") for line in said)
 
 
 def test_one_design_alone_cannot_be_compared(capsys):

@@ -90,3 +90,23 @@ def test_an_alarm_without_a_relaxation_is_a_symptom_when_the_cause_relaxation_re
 
 def test_an_alarm_without_a_relaxation_that_remains_under_the_cause_stays_broken():
     assert statistic_only(p_under_cause=0.001)["time_homogeneity"].verdict == "broken"
+
+
+def test_the_headline_counts_the_failures_and_names_the_cause_and_its_symptoms():
+    ppc_under = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 0.0, 0.4,
+                        "under", {"relaxation_of": "no_missing_exit"})
+    judged = verdicts.decide(DECLARED, [relaxation("no_missing_exit", "dormant", 40.0),
+                                        relaxation("time_homogeneity", "stay_drift", 12.0), ppc_under])
+    line = verdicts.headline(judged)
+    assert line.startswith("Of 5 assumptions, 1 is broken and 1 doubtful.")
+    assert "Likely cause: no_missing_exit" in line
+    assert "time_homogeneity follows from it" in line
+    assert "Next step: Add the exit." in line
+
+
+def test_the_headline_of_a_run_with_nothing_wrong_names_what_was_not_checked():
+    quiet = relaxation("no_missing_exit", "dormant", -0.5)
+    quiet.numbers["share_beyond"] = 0.0
+    line = verdicts.headline(verdicts.decide(DECLARED, [quiet]))
+    assert line.startswith("Nothing is broken or doubtful: 1 of 5 assumptions hold.")
+    assert "Not checked: priors, computation, implementation, time_homogeneity." in line

@@ -86,6 +86,7 @@ def check(
     cache: bool | str | Path | None = None,
     history: bool | str | Path | None = True,
     plan_file: str | Path | None = None,
+    truth: Mapping[str, Any] | None = None,
 ) -> CheckResult:
     """Run the full check of a design on a table and (by default) write its files.
 
@@ -93,6 +94,8 @@ def check(
     folder; a path: that folder). ``history`` appends a row to the run
     history when files are written (True: the default history file; False:
     none). ``plan_file`` names the plan the run came from, for the manifest.
+    ``truth`` gives the true parameter values of simulated data (a demo), which
+    the report shows beside the estimates.
     """
     plans.check_seed(seed, "seed")
     design = resolve_design(target, options, priors, recipe_folders)
@@ -109,6 +112,7 @@ def check(
         if sbc:
             from workbench.calibration import run_calibration
 
+<<<<<<< HEAD
             def calibrate():
                 return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
                                        folder=folder, quiet=not progress)
@@ -128,6 +132,27 @@ def check(
             result.files = write_check(result, command)
             if history:
                 from workbench import history as run_history
+=======
+        def calibrate():
+            return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
+                                   folder=folder, quiet=not progress)
+    command = command or _api_command(target, data, options, priors, seed, sbc)
+    run = harness.run_check(design, dataset, info, seed, settings, relax=relax, workers=workers,
+                            calibrate=calibrate, say=say, progress=progress,
+                            fitter=fitter_for(cache, info.sha256))
+    doc = writers.summary(run)
+    doc["manifest"] = writers.clean(plans.manifest(
+        command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=run.started,
+        plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
+              "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
+              "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
+              "sampling": settings.to_dict()}))
+    result = CheckResult(run, doc, folder)
+    if write:
+        result.files = write_check(result, command, truth)
+        if history:
+            from workbench import history as run_history
+>>>>>>> report-estimates
 
                 run_history.record(history_path(history), run_history.check_entry(
                     "check", run.design, doc, result.files["report"]))
@@ -159,7 +184,8 @@ def _api_command(target, data, options, priors, seed, sbc) -> str:
     return " ".join(parts)
 
 
-def write_check(result: CheckResult, command: str) -> dict[str, Path]:
+def write_check(result: CheckResult, command: str, truth: Mapping[str, Any] | None = None
+                ) -> dict[str, Path]:
     """report.html, summary.json, posterior.nc and notebook.ipynb, each atomically."""
     from workbench import notebook
     from workbench.report import html as report_html
@@ -170,7 +196,7 @@ def write_check(result: CheckResult, command: str) -> dict[str, Path]:
         "summary": writers.write_json(folder / "summary.json", result.summary),
         "posterior": writers.write_posterior(folder / "posterior.nc", run.fit.idata),
         "notebook": writers.atomic_write(folder / "notebook.ipynb", notebook.for_check(run, result.summary)),
-        "report": writers.atomic_write(folder / "report.html", report_html.render(run, result.summary, command)),
+        "report": writers.atomic_write(folder / "report.html", report_html.render(run, result.summary, command, truth)),
     }
     return files
 

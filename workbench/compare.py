@@ -100,13 +100,13 @@ class CompareResult:
     def _repr_html_(self) -> str:
         rows = "".join(
             f"<tr><td>{html.escape(r['design'])}</td><td>{r['elpd']:.1f}</td>"
-            f"<td>{r['elpd_diff']:.1f}</td><td>{r['dse']:.1f}</td><td>{r['weight']:.2f}</td></tr>"
+            f"<td>{r['gap']:.1f}</td><td>{r['gap_se']:.1f}</td><td>{r['stacking_weight']:.2f}</td></tr>"
             for r in self.doc["comparison"]
         )
         where = (f"<p>Report: {html.escape(str(self.files['report']))}</p>"
                  if "report" in self.files else "")
         return (f"<p><strong>{html.escape(self.doc['statement'])}</strong></p>"
-                "<table><tr><th>design</th><th>elpd</th><th>difference</th><th>SE of difference</th>"
+                "<table><tr><th>design</th><th>elpd</th><th>gap to the best</th><th>SE of the gap</th>"
                 f"<th>stacking weight</th></tr>{rows}</table>{where}")
 
 
@@ -176,7 +176,8 @@ def compare(
         raise OptionError(f"compare: expected at least two designs; found {len(plan.designs)}")
     resolved = [api.resolve_design(d.target, d.options, d.priors, recipe_folders) for d in plan.designs]
     labels = [d.label() for d in resolved]
-    twice = sorted({x for x in labels if labels.count(x) > 1})
+    keys = [d.key() for d in resolved]
+    twice = [label for label, key in zip(labels, keys) if keys.count(key) > 1]
     if twice:
         raise OptionError(f"compare: design '{twice[0]}' is given twice; expected distinct designs")
     for design in resolved:
@@ -247,14 +248,23 @@ def loo_by_design(checks, labels) -> dict:
     return elpds
 
 
-def comparison_rows(elpds: dict) -> list[dict]:
-    """ArviZ's PSIS-LOO comparison with stacking weights, best first, as plain rows.
+# Cautions about a gap, in plain words, keyed by the comparison's own flags.
+GAP_CAUTIONS = {
+    "N < 100": "fewer than 100 observations: the SE of the gap is itself rough",
+    "|elpd_diff| < 4": "a gap below 4 is no evidence whatever its SE",
+}
 
-    Each row: ``design``, ``rank``, ``elpd``, ``se``, ``elpd_diff`` (to the
-    best, <= 0), ``dse`` (its standard error), ``p_loo``, ``weight``,
-    ``within`` (difference within :data:`SE_MULTIPLE` SE, or the best
-    itself), ``bad_pareto_k`` (row indices with k above
-    :data:`PARETO_K_LIMIT`) and ArviZ's own caution (``diagnosis``).
+
+def comparison_rows(elpds: dict) -> list[dict]:
+    """The PSIS-LOO comparison with stacking weights, best first, as plain rows.
+
+    Each row: ``design``, ``place`` (1 for the best), ``elpd`` and
+    ``elpd_se``, ``gap`` (how far its elpd falls below the best's, >= 0) and
+    ``gap_se`` (the standard error of that gap), ``level_with_best`` (the
+    best itself, or a gap within :data:`SE_MULTIPLE` SE or below
+    :data:`SMALL_DIFFERENCE`), ``stacking_weight``, ``p_loo``,
+    ``high_k_rows`` (row indices with Pareto k above :data:`PARETO_K_LIMIT`)
+    and ``caution`` (plain words, '' when none).
 
     References
     ----------
@@ -268,31 +278,32 @@ def comparison_rows(elpds: dict) -> list[dict]:
     rows = []
     for label, r in table.iterrows():
         k = np.asarray(elpds[label].pareto_k).ravel() if elpds[label].pareto_k is not None else np.zeros(0)
-        diff, dse = float(r["elpd_diff"]), float(r["dse"])
+        gap, gap_se = -float(r["elpd_diff"]), float(r["dse"])
+        place = int(r["rank"]) + 1
         rows.append({
             "design": str(label),
-            "rank": int(r["rank"]),
+            "place": place,
             "elpd": float(r["elpd"]),
-            "se": float(r["se"]),
-            "elpd_diff": diff,
-            "dse": dse,
+            "elpd_se": float(r["se"]),
+            "gap": gap,
+            "gap_se": gap_se,
+            "level_with_best": place == 1 or too_close_to_call(gap, gap_se),
+            "stacking_weight": float(r["weight"]),
             "p_loo": float(r["p"]),
-            "weight": float(r["weight"]),
-            "within": int(r["rank"]) == 0 or too_close_to_call(diff, dse),
-            "bad_pareto_k": [int(i) for i in np.flatnonzero(k > PARETO_K_LIMIT)],
-            "diagnosis": " ".join(str(r.get(c) or "") for c in ("diag_diff", "diag_elpd")).strip(),
+            "high_k_rows": [int(i) for i in np.flatnonzero(k > PARETO_K_LIMIT)],
+            "caution": GAP_CAUTIONS.get(str(r.get("diag_diff") or ""), ""),
         })
     return rows
 
 
-def too_close_to_call(elpd_diff: float, dse: float) -> bool:
-    """Whether a design's elpd difference to the best leaves the top open.
+def too_close_to_call(gap: float, gap_se: float) -> bool:
+    """Whether a design's gap to the best leaves the top open.
 
-    Open when the difference is within :data:`SE_MULTIPLE` standard errors,
-    or below :data:`SMALL_DIFFERENCE` whatever its standard error (two
-    near-identical designs have a tiny difference with a tinier SE).
+    Open when the gap is within :data:`SE_MULTIPLE` standard errors, or
+    below :data:`SMALL_DIFFERENCE` whatever its standard error (two
+    near-identical designs have a tiny gap with a tinier SE).
     """
-    return abs(elpd_diff) <= SE_MULTIPLE * dse or abs(elpd_diff) < SMALL_DIFFERENCE
+    return abs(gap) <= SE_MULTIPLE * gap_se or abs(gap) < SMALL_DIFFERENCE
 
 
 def statement(rows: list[dict]) -> tuple[str, str | None]:
@@ -302,11 +313,11 @@ def statement(rows: list[dict]) -> tuple[str, str | None]:
     more than :data:`SE_MULTIPLE` standard errors of the difference.
     """
     best, others = rows[0], rows[1:]
-    close = [r for r in others if r["within"]]
-    far = [r for r in others if not r["within"]]
+    close = [r for r in others if r["level_with_best"]]
+    far = [r for r in others if not r["level_with_best"]]
 
     def diff(r):
-        return f"{-r['elpd_diff']:.1f} (SE {r['dse']:.1f})"
+        return f"{r['gap']:.1f} (SE {r['gap_se']:.1f})"
 
     if not close:
         nearest = others[0]
@@ -324,15 +335,15 @@ def statement(rows: list[dict]) -> tuple[str, str | None]:
             text += "; " + ", ".join(f"{r['design']} predicts worse by {diff(r)}" for r in far)
         text += "."
         winner = None
-    small = [r for r in others if abs(r["elpd_diff"]) < SMALL_DIFFERENCE]
+    small = [r for r in others if abs(r["gap"]) < SMALL_DIFFERENCE]
     if small:
         text += (f" Differences below {SMALL_DIFFERENCE:g} ({', '.join(r['design'] for r in small)}) "
                  "are small: their standard errors are themselves uncertain.")
-    flagged = [r for r in rows if r["bad_pareto_k"]]
+    flagged = [r for r in rows if r["high_k_rows"]]
     for r in flagged:
-        text += (f" {r['design']} has {len(r['bad_pareto_k'])} row(s) with Pareto k above "
+        text += (f" {r['design']} has {len(r['high_k_rows'])} row(s) with Pareto k above "
                  f"{PARETO_K_LIMIT:g}; its elpd may be too optimistic.")
-    weights = ", ".join(f"{r['design']} {r['weight']:.2f}" for r in rows)
+    weights = ", ".join(f"{r['design']} {r['stacking_weight']:.2f}" for r in rows)
     text += f" Stacking weights: {weights}."
     return text, winner
 
@@ -462,7 +473,7 @@ def write_compare(result: CompareResult, command: str) -> dict[str, Path]:
     page = report_html.environment().get_template("compare.html.j2").render(
         doc=result.doc, figure=figure, command=command,
         reports={label: str(p.relative_to(folder)) for label, p in reports.items()},
-        se_multiple=SE_MULTIPLE, k_limit=PARETO_K_LIMIT)
+        se_multiple=SE_MULTIPLE, k_limit=PARETO_K_LIMIT, small=SMALL_DIFFERENCE)
     files["report"] = writers.atomic_write(folder / "compare.html", page)
     files["notebook"] = writers.atomic_write(folder / "notebook.ipynb", notebook.for_compare(result.doc))
     return files

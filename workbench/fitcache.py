@@ -57,7 +57,7 @@ def fit_key(design, data_sha256: str, seed: int, settings, relaxation=None,
 
     fields = {
         "format": FORMAT,
-        "design": design.label(),
+        "design": design.key(),
         "options": {str(k): str(v) for k, v in sorted(dict(design.options).items())},
         "priors": {str(k): str(v) for k, v in sorted(dict(design.priors).items())},
         "source": source_sha256(design),

@@ -17,7 +17,11 @@ from datetime import datetime, timezone
 from importlib import metadata
 from typing import Any, Callable
 
+<<<<<<< HEAD
 from workbench import checks, engine, executor, interrupts, verdicts
+=======
+from workbench import checks, engine, estimates, interrupts, verdicts
+>>>>>>> report-estimates
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -98,7 +102,7 @@ def _layout(model) -> tuple:
 def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=None, **kwargs) -> engine.Fit:
     """Fit ``design`` (optionally relaxed) to ``data``, reusing a compiled model when one fits."""
     fresh = design.build(data, relaxation)
-    key = (design.label(), getattr(relaxation, "parameter", None), _layout(fresh))
+    key = (design.key(), getattr(relaxation, "parameter", None), _layout(fresh))
     if key not in _COMPILED:
         _COMPILED[key] = (fresh, engine.Sampler(fresh))
         return engine.fit(fresh, seed, settings, sampler=_COMPILED[key][1], **kwargs)
@@ -202,7 +206,7 @@ def run_check(
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     seeds = engine.seed_stream(seed, "main", "relaxations")
     main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
-                                  label=design.name, say=say)
+                                  label=design.label(), say=say)
     relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
                               fitter, progress, main) if relax else {}
     calibration = calibrate() if calibrate else None
@@ -211,6 +215,7 @@ def run_check(
     say("running checks")
     findings = checks.run_all(context)
     context.extras["computation"] = computation_summary(main.idata)
+    context.extras["parameters"] = estimates.parameters(main.idata)
     derived = getattr(getattr(design, "recipe", None), "derived", None)
     if derived is not None:
         context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))

@@ -299,6 +299,10 @@ class ModelFileDesign:
         """The file name: a model file has no options to list."""
         return self.path.name
 
+    def key(self) -> str:
+        """The design's identity for fit caches and duplicate checks: its label."""
+        return self.label()
+
     def __reduce__(self):
         # Worker processes reload the file by path (a design holds its functions).
         return (_reload, (str(self.path.resolve()), self._outcomes))

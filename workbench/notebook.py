@@ -35,7 +35,7 @@ def key_numbers(doc: dict) -> dict:
     schema = doc.get("schema", "")
     if schema.startswith("workbench.compare/"):
         return {"best": doc["best"],
-                "comparison": [{k: r[k] for k in ("design", "elpd", "se", "elpd_diff", "dse", "weight")}
+                "comparison": [{k: r[k] for k in ("design", "elpd", "elpd_se", "gap", "gap_se", "stacking_weight")}
                                for r in doc["comparison"]],
                 "designs": {d["label"]: key_numbers(d["summary"]) for d in doc["designs"]}}
     if schema.startswith("workbench.audit/"):

@@ -221,6 +221,9 @@ class Recipe:
     people_decisions: bool = False
     source: str = ""
     approximate_likelihood: str | Callable[["Dataset"], str] = ""
+    # How the report names each observed variable, from the table's columns
+    # ({"y": "successes"}); a function of the options when the columns are options.
+    outcome_columns: Mapping[str, str] | Callable[[dict], Mapping[str, str]] | None = None
 
     def read_options(self, given: Mapping[str, Any]) -> dict[str, Any]:
         """Parse ``--set`` values against the declared options, filling defaults."""
@@ -290,6 +293,9 @@ class Design:
     recipe: Recipe
     options: dict[str, Any]
     priors: dict[str, str]
+    # The options the user wrote, in the order written: the label keeps them
+    # even where they repeat a default (timing-curve:family=weibull).
+    typed: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -338,15 +344,38 @@ class Design:
         # rebuilds the design from plain data (the file, the recipe's name and
         # the options as the user types them).
         options = {k: option_text(v) for k, v in self.options.items() if v is not None}
-        return (_design_from_source, (self.recipe.source, self.recipe.name, options, dict(self.priors)))
+        return (_design_from_source, (self.recipe.source, self.recipe.name, options, dict(self.priors),
+                                      tuple(self.typed)))
 
     def label(self) -> str:
-        """Short text naming the design, e.g. ``timing-curve:family=weibull``."""
+        """The design as the user wrote it, e.g. ``timing-curve:family=weibull``.
+
+        The options typed come first in their order, then any other option
+        that differs from its default, then the prior overrides.
+        """
+        shown = [k for k in self.typed if k in self.options] + \
+            [k for k in self._changed() if k not in self.typed]
+        return self._text(shown)
+
+    def key(self) -> str:
+        """The design's identity whatever way it was written: options that differ
+        from their defaults, in name order (fit caches and duplicate checks)."""
+        return self._text(self._changed())
+
+    def _changed(self) -> list[str]:
         defaults = {o.name: o.default for o in self.recipe.options}
-        parts = [self.recipe.name]
-        parts += [f"{k}={option_text(v)}" for k, v in sorted(self.options.items()) if v != defaults.get(k)]
+        return [k for k, v in sorted(self.options.items()) if v != defaults.get(k)]
+
+    def _text(self, names: list[str]) -> str:
+        parts = [self.recipe.name] + [f"{k}={option_text(self.options[k])}" for k in names]
         parts += [f"{k}~{v}" for k, v in sorted(self.priors.items())]
         return ":".join(parts)
+
+
+def outcome_words(design) -> dict[str, str]:
+    """The table columns behind each observed variable of ``design`` ({} when unknown)."""
+    named = getattr(getattr(design, "recipe", None), "outcome_columns", None) or {}
+    return dict(named(design.options) if callable(named) else named)
 
 
 def likelihood_approximation(design, data) -> str:
@@ -355,11 +384,12 @@ def likelihood_approximation(design, data) -> str:
     return note(data) if callable(note) else note
 
 
-def _design_from_source(source: str, name: str, options: dict, priors: dict) -> "Design":
+def _design_from_source(source: str, name: str, options: dict, priors: dict,
+                        typed: tuple[str, ...] = ()) -> "Design":
     from workbench.registry import recipe_from_file
 
     recipe = recipe_from_file(source, name)
-    return Design(recipe, recipe.read_options(options), priors)
+    return Design(recipe, recipe.read_options(options), priors, typed)
 
 
 def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str, str]) -> Design:
@@ -376,8 +406,13 @@ def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str,
             close = get_close_matches(name, known, n=1)
             hint = f"; did you mean '{close[0]}'?" if close else f" (parameters: {', '.join(sorted(known))})"
             raise OptionError(f"--prior: recipe '{recipe.name}' has no parameter '{name}'{hint}")
+<<<<<<< HEAD
         spec = parse_prior(str(text), where=f"--prior {name}")
         default = next(p.prior for p in recipe.parameters if p.name == name)
         check_support(spec, parse_prior(default, where=f"prior of {name}"), name, f"--prior {name}")
         checked[name] = str(spec)
     return Design(recipe, values, checked)
+=======
+        checked[name] = str(parse_prior(str(text), where=f"--prior {name}"))
+    return Design(recipe, values, checked, tuple(k for k in options if k in values))
+>>>>>>> report-estimates

@@ -42,6 +42,8 @@ class Verdict:
     evidence: list[tuple[Finding, Judgement]] = field(default_factory=list)
     advice: str = ""
     strength: float = 0.0
+    # The key of the assumption whose failure explains this one's alarm ('' when none).
+    symptom_of: str = ""
 
     def to_dict(self) -> dict:
         return {
@@ -154,3 +156,39 @@ def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> 
 def rank(verdicts: list[Verdict]) -> list[Verdict]:
     """Most urgent first; among equals, the strongest evidence first."""
     return sorted(verdicts, key=lambda v: (ORDER[v.verdict], -v.strength))
+
+
+def headline(verdicts: list[Verdict]) -> str:
+    """The result of a run in one sentence: what is wrong, the likely cause, the next step.
+
+    The likely cause is the assumption that others are symptoms of, else the
+    most urgent one. With nothing broken or doubtful the sentence names the
+    assumptions that no check reached.
+    """
+    counts = {level: sum(v.verdict == level for v in verdicts) for level in (BROKEN, DOUBTFUL)}
+    unchecked = [v.key for v in verdicts if v.verdict == UNCHECKED]
+    if not any(counts.values()):
+        held = sum(v.verdict == HOLDS for v in verdicts)
+        text = f"Nothing is broken or doubtful: {held} of {len(verdicts)} assumptions hold."
+        if unchecked:
+            text += f" Not checked: {', '.join(unchecked)}."
+            advice = [v.advice for v in verdicts if v.verdict == UNCHECKED and v.advice]
+            if advice:
+                text += f" {advice[0]}"
+        return text
+    parts = [f"{n} {level}" for level, n in counts.items() if n]
+    verb = "is" if counts[BROKEN] == 1 or (not counts[BROKEN] and counts[DOUBTFUL] == 1) else "are"
+    found = f"Of {len(verdicts)} assumptions, {parts[0].replace(' ', f' {verb} ', 1)}" \
+        + "".join(f" and {p}" for p in parts[1:])
+    ranked = rank(verdicts)
+    causes = [v.symptom_of for v in ranked if v.symptom_of]
+    cause = next((v for v in ranked if causes and v.key == causes[0]), ranked[0])
+    symptoms = [v.key for v in ranked if v.symptom_of == cause.key]
+    role = "Likely cause" if cause.verdict == BROKEN else "Most in doubt"
+    text = f"{found}. {role}: {cause.key} ({cause.statement.rstrip('.')})"
+    if symptoms:
+        text += f"; {', '.join(symptoms)} {'follows' if len(symptoms) == 1 else 'follow'} from it"
+    text += "."
+    if cause.advice:
+        text += f" Next step: {cause.advice}"
+    return text

@@ -195,6 +195,7 @@ def summary(run) -> dict:
         "loo": {k: run.extras["loo"][k] for k in ("elpd", "se", "p_loo", "bad_pareto_k")}
         if "loo" in run.extras else None,
         "calibration": run.calibration.to_dict() if run.calibration is not None else None,
+        "parameters": run.extras.get("parameters", {}),
         "sampling": run.settings.to_dict(),
     }
     if "derived" in run.extras:

@@ -21,6 +21,7 @@ from __future__ import annotations
 from workbench.checks import Context, check
 from workbench.findings import IMPLEMENTATION, Finding
 from workbench.recipe import likelihood_approximation
+from workbench.wording import p_equals
 
 # Figure names the report uses for the calibration plots.
 ECDF_FIGURE = "calibration-ecdf"
@@ -53,7 +54,7 @@ def calibration_findings(result, approximate_likelihood: str = "") -> list[Findi
             detail=(
                 f"Ranks of {name} among {result.L} posterior draws over {used} replicates "
                 f"{source}: mean-rank z = {test.shift_z:+.2f}, outer-half z = {test.spread_z:+.2f} "
-                f"(ECDF test p = {_p(test.ecdf_p_value)}, chi-square p = {_p(test.chi2_p_value)})."
+                f"(ECDF test {_p(test.ecdf_p_value)}, chi-square {_p(test.chi2_p_value)})."
             ),
             numbers={
                 "quantity": name,
@@ -112,7 +113,7 @@ def _reason_kind(reason: str) -> str:
 
 
 def _p(p) -> str:
-    return "n/a" if p is None else f"{p:.2g}"
+    return "p n/a" if p is None else p_equals(p)
 
 
 @check

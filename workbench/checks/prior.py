@@ -26,7 +26,7 @@ import numpy as np
 
 from workbench.checks import Context, check
 from workbench.findings import PRIORS, Finding
-from workbench.recipe import likelihood_approximation
+from workbench.recipe import likelihood_approximation, outcome_words
 
 
 def free_parameters(fit) -> list[str]:
@@ -59,6 +59,7 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
     prior_pred = fit.draws(group="prior_predictive")
     observed = fit.idata["observed_data"].to_dataset()
     spread = not likelihood_approximation(context.design, context.data)
+    words = outcome_words(context.design)
     findings = []
     for name in observed.data_vars:
         if name not in prior_pred:
@@ -67,9 +68,13 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
         obs = _summaries(observed[name].values[None, ...], spread)
         for stat, simulated in sims.items():
             o = float(obs[stat][0])
+            lo, hi = np.percentile(simulated, [1, 99])
+            if lo == hi and np.isclose(o, lo):
+                # The model fixes this statistic (counts that sum to the units
+                # exposed) and the data have it: it says nothing about the priors.
+                continue
             below = float(np.mean(simulated < o) + 0.5 * np.mean(simulated == o))
             tail = min(below, 1.0 - below)
-            lo, hi = np.percentile(simulated, [1, 99])
             findings.append(
                 Finding(
                     assumption=PRIORS,
@@ -78,7 +83,7 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
                     value=o,
                     p_value=2.0 * tail,
                     detail=(
-                        f"Observed {stat} of {name} is {o:.4g}; the prior predictive puts 98% "
+                        f"Observed {stat} of {words.get(name, name)} is {o:.4g}; the prior predictive puts 98% "
                         f"of its mass between {lo:.4g} and {hi:.4g} ({below:.1%} below the observed)."
                     ),
                     numbers={"share_below": below, "low": float(lo), "high": float(hi)},
@@ -205,8 +210,9 @@ def prior_sensitivity(context: Context) -> list[Finding]:
                 check=f"prior_sensitivity:{label}",
                 value=float(ps[i]),
                 detail=(
-                    f"Power-scaling sensitivity of {label}: to the prior {ps[i]:.3f}, "
-                    f"to the likelihood {ls[i]:.3f}."
+                    f"Giving the prior more or less weight moves the posterior of {label} by "
+                    f"{ps[i]:.3f}; giving the data more or less weight moves it by {ls[i]:.3f} "
+                    f"(power-scaling distance)."
                 ),
                 numbers={"parameter": label, "prior": float(ps[i]), "likelihood": float(ls[i]),
                          # A model file writes its priors in code: --prior cannot change them.

@@ -23,6 +23,7 @@ from workbench.checks.loo import loo_of
 from workbench.checks.predictive import discrepancies
 from workbench.findings import COMPUTATION, Finding
 from workbench.statistics import predictive_p_value
+from workbench.wording import p_equals
 
 
 def elpd_difference(expanded, original) -> tuple[float, float]:
@@ -104,7 +105,7 @@ def statistics_under_relaxations(context: Context) -> list[Finding]:
                     value=float(np.nanmean(observed)),
                     p_value=p,
                     detail=(f"Under the model that relaxes {other.key} ({relaxation.parameter}), "
-                            f"'{statistic.name}' has p = {p:.3g}."),
+                            f"'{statistic.name}' has {p_equals(p)}."),
                     numbers={"relaxation_of": other.key},
                 )
             )

@@ -51,8 +51,9 @@ def run(args) -> int:
         command=common.command_line(),
     )
     for row in result.doc["comparison"]:
-        diff = "" if row["rank"] == 0 else f"  {row['elpd_diff']:+.1f} (SE {row['dse']:.1f})"
-        print(f"  {row['rank'] + 1}. {row['design']}  elpd {row['elpd']:.1f}{diff}  weight {row['weight']:.2f}")
+        gap = "" if row["place"] == 1 else f"  {row['gap']:.1f} below the best (SE {row['gap_se']:.1f})"
+        print(f"  {row['place']}. {row['design']}  elpd {row['elpd']:.1f}{gap}  "
+              f"stacking weight {row['stacking_weight']:.2f}")
     print(result.doc["statement"])
     print(f"report: {result.files['report']}")
     return 0

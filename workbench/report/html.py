@@ -13,8 +13,10 @@ from pathlib import Path
 import jinja2
 import numpy as np
 
+from workbench import wording
+from workbench.recipe import outcome_words
 from workbench.report import plots
-from workbench.verdicts import BROKEN, DOUBTFUL, HOLDS, UNCHECKED
+from workbench.verdicts import BROKEN, DOUBTFUL, HOLDS, UNCHECKED, headline
 
 TEMPLATES = Path(__file__).parent / "templates"
 
@@ -41,21 +43,62 @@ def environment() -> jinja2.Environment:
         trim_blocks=True,
         lstrip_blocks=True,
     )
-    env.filters["num"] = _num
+    env.filters["num"] = wording.number
+    env.filters["p"] = wording.p_value
+    env.filters["count"] = wording.count
+    env.filters["check"] = check_words
     env.globals["badges"] = BADGES
     return env
 
 
-def _num(x, digits=3):
-    if x is None:
-        return "–"
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return str(x)
-    if not np.isfinite(x):
-        return "–"
-    return f"{x:.{digits}g}"
+# How the report names each family of checks; the ids stay in summary.json.
+SAMPLER_CHECKS = {
+    "divergences": "Divergent transitions",
+    "funnel": "Funnel at a centred scale",
+    "boundary": "Divergences at a bound",
+    "rhat": "Chains agree (R-hat)",
+    "ess": "Effective draws (ESS)",
+    "bfmi": "Energy transitions (E-BFMI)",
+    "treedepth": "Tree depth",
+    "ridge": "Correlated parameters",
+    "contraction": "Learning from the data (contraction)",
+}
+STATISTICS = {"mean": "mean", "sd": "spread"}
+
+
+def check_words(check: str, outcomes: dict[str, str] | None = None) -> str:
+    """A check id (``prior_coverage:y:sd``, ``ppc:late_trend|cohort_sd``) in words.
+
+    ``outcomes`` names observed variables by the table's columns (``y`` is
+    ``successes``).
+    """
+    outcomes = outcomes or {}
+    family, _, rest = check.partition(":")
+    if "|" in family:  # a check re-scored under a relaxed model: "sampling|cohort_sd"
+        family, relaxed = family.split("|", 1)
+        rest = f"|{relaxed}"
+    subject, _, relaxed = rest.partition("|")
+    words = subject.replace("_", " ")
+    if family == "prior_coverage":
+        name, _, stat = subject.rpartition(":")
+        text = f"Prior predictive {STATISTICS.get(stat, stat)} of {outcomes.get(name, name)}"
+    elif family == "prior_tail":
+        text = f"Posterior of {subject} among its prior draws" if subject else "Posteriors among their prior draws"
+    elif family == "prior_sensitivity":
+        text = f"Prior and likelihood weight on {subject}" if subject else "Prior and likelihood weight"
+    elif family == "computation":
+        text = SAMPLER_CHECKS.get(subject, words.capitalize())
+    elif family == "sampling":
+        text = "Sampler"
+    elif family == "ppc":
+        text = f"Predictive check: {words}"
+    elif family == "relaxation":
+        text = f"Relaxed model: {subject}"
+    elif family == "calibration":
+        text = "Calibration: failed fits" if subject == "failures" else f"Calibration of {subject}"
+    else:
+        text = check.replace("_", " ").replace(":", ": ")
+    return f"{text}, with {relaxed} free" if relaxed else text
 
 
 def anchor(key: str) -> str:
@@ -143,21 +186,39 @@ def figures(run) -> dict[str, dict]:
     return out
 
 
-def render(run, summary: dict, command: str = "") -> str:
-    """The report as one HTML string."""
+def estimate_rows(run, summary: dict, truth=None) -> list[dict]:
+    """The parameter table: each estimate with its true value when ``truth`` names it."""
+    from workbench.estimates import beside_truth
+
+    estimates = summary.get("parameters") or {}
+    true = beside_truth(run.fit.idata, estimates, truth) if truth else {}
+    rows = []
+    for label, e in estimates.items():
+        t = true.get(label)
+        outside = t is not None and e["low"] is not None and e["high"] is not None \
+            and not e["low"] <= t <= e["high"]
+        rows.append({"label": label, **e, "truth": t, "outside": outside})
+    return rows
+
+
+def render(run, summary: dict, command: str = "", truth=None) -> str:
+    """The report as one HTML string; ``truth`` holds the true values of simulated data."""
     with plots.literal_text():  # group and outcome names are user text, not mathtext
         figs = figures(run)
     recipe = getattr(run.design, "recipe", None)
+    outcomes = outcome_words(run.design)
     verdicts = []
     for v in run.verdicts:
         worst = max((j.level for _, j in v.evidence), default=0)
-        lead = next((f"{f.detail} {j.sentence}" for f, j in v.evidence if j.level == worst), "")
+        lead = wording.readable(next((f"{f.detail} {j.sentence}" for f, j in v.evidence
+                                      if j.level == worst), ""))
         figure_names = [f.figure for f, _ in v.evidence if f.figure and f.figure in figs]
         verdicts.append({
             "key": v.key, "anchor": anchor(v.key), "statement": v.statement, "verdict": v.verdict,
-            "lead": lead.strip(), "advice": v.advice,
-            "evidence": [{"check": f.check, "value": f.value, "p_value": f.p_value,
-                          "detail": f.detail, "judgement": j.sentence, "level": j.level}
+            "lead": lead.strip(), "advice": wording.readable(v.advice),
+            "evidence": [{"check": f.check, "words": check_words(f.check, outcomes), "value": f.value, "p_value": f.p_value,
+                          "detail": wording.readable(f.detail),
+                          "judgement": wording.readable(j.sentence), "level": j.level}
                          for f, j in v.evidence],
             "figures": [dict(figs[n], name=n) for n in dict.fromkeys(figure_names)],
         })
@@ -172,6 +233,10 @@ def render(run, summary: dict, command: str = "") -> str:
         design_label=run.design.label(),
         summary=summary,
         verdicts=verdicts,
+        headline=wording.readable(headline(run.verdicts)),
+        worst=verdicts[0]["verdict"] if verdicts else HOLDS,
+        estimates=estimate_rows(run, summary, truth),
+        has_truth=bool(truth),
         caution=CAUTION if recipe is not None and recipe.people_decisions else "",
         fit_figs=fit_figs,
         sampler_figs=sampler_figs,

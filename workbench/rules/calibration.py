@@ -6,6 +6,7 @@ import math
 
 from workbench.findings import Finding
 from workbench.verdicts import Judgement, rule
+from workbench.wording import p_equals
 
 # The uniformity test's level is exact (its null is simulated), so with a
 # Bonferroni split over the m quantities ranked in one run a correct model
@@ -73,15 +74,15 @@ def calibration_ranks(f: Finding) -> Judgement:
         advice = ADVICE[n["direction"]].format(q=base)
     if n.get("approximate_likelihood") and p < DOUBTFUL_FAMILY_ALPHA / tests:
         # A documented approximation of the likelihood, not a coding error.
-        return Judgement(0, f"The ranks of {name} depart from uniform (p = {p:.2g}), as expected: "
+        return Judgement(0, f"The ranks of {name} depart from uniform ({p_equals(p)}), as expected: "
                             f"{n['approximate_likelihood']}.")
     if p < BROKEN_FAMILY_ALPHA / tests:
-        sentence = f"The ranks of {name} are far from uniform (p = {p:.2g}): {shape}.{note}"
+        sentence = f"The ranks of {name} are far from uniform ({p_equals(p)}): {shape}.{note}"
         return Judgement(2, sentence, advice, strength=strength + 3.0)
     if p < DOUBTFUL_FAMILY_ALPHA / tests:
-        sentence = f"The ranks of {name} lean away from uniform (p = {p:.2g}): {shape}.{note}"
+        sentence = f"The ranks of {name} lean away from uniform ({p_equals(p)}): {shape}.{note}"
         return Judgement(1, sentence, advice, strength=strength)
-    return Judgement(0, f"The ranks of {name} look uniform (p = {p:.2f}).{note}")
+    return Judgement(0, f"The ranks of {name} look uniform ({p_equals(p)}).{note}")
 
 
 @rule("calibration_failures")

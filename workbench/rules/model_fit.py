@@ -16,6 +16,7 @@ import math
 
 from workbench.findings import COMPUTATION, PRIORS, Finding
 from workbench.verdicts import BROKEN, DOUBTFUL, Judgement, Verdict, rule, settle
+from workbench.wording import p_equals
 
 # Posterior predictive p-values are conservative (concentrated near 0.5 when
 # the model holds; Gelman et al. 2013, BDA3 sec. 6.3), so these cut-offs are
@@ -50,12 +51,12 @@ def targeted_statistic(f: Finding) -> Judgement:
         return Judgement(0, "The statistic could not be computed on these draws.")
     strength = -math.log10(max(p, 1e-6))
     if p < PPC_BROKEN_P:
-        return Judgement(2, f"Replicated data almost never look like this (p = {p:.3g}).",
+        return Judgement(2, f"Replicated data almost never look like this ({p_equals(p)}).",
                          strength=strength)
     if p < PPC_DOUBTFUL_P:
-        return Judgement(1, f"Replicated data rarely look like this (p = {p:.3g}).",
+        return Judgement(1, f"Replicated data rarely look like this ({p_equals(p)}).",
                          strength=strength)
-    return Judgement(0, f"Typical of data replicated from the fit (p = {p:.2f}).")
+    return Judgement(0, f"Typical of data replicated from the fit ({p_equals(p)}).")
 
 
 @rule("relaxation")
@@ -131,7 +132,7 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
                  if f.kind == "ppc_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
         if under and min(under) >= PPC_DOUBTFUL_P:
             _demote(v, cause, f"once that assumption is relaxed this one's statistic looks "
-                              f"ordinary (p = {min(under):.2f})")
+                              f"ordinary ({p_equals(min(under))})")
     for v in verdicts:
         if v.key != COMPUTATION or v.verdict != BROKEN:
             continue
@@ -155,5 +156,6 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
 
 def _demote(verdict: Verdict, cause: Verdict, why: str) -> None:
     verdict.verdict = DOUBTFUL
+    verdict.symptom_of = cause.key
     verdict.advice = f"Revisit after addressing '{cause.key}': {why}."
     verdict.strength = 0.0

@@ -76,7 +76,7 @@ def sensitivity(f: Finding) -> Judgement:
         return Judgement(1, f"{name} is driven by its prior more than by the data.",
                          f"The data say little about {name}; report its prior as an assumption "
                          f"or collect data that inform it.", strength=prior)
-    return Judgement(0, "Not sensitive to the prior.")
+    return Judgement(0, f"The data, not the prior, decide where {name} lies: the two agree.")
 
 
 @rule("prior_sensitivity_failed")
