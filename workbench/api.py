@@ -112,7 +112,6 @@ def check(
         if sbc:
             from workbench.calibration import run_calibration
 
-<<<<<<< HEAD
             def calibrate():
                 return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
                                        folder=folder, quiet=not progress)
@@ -129,30 +128,9 @@ def check(
                   "sampling": settings.to_dict()}))
         result = CheckResult(run, doc, folder)
         if write:
-            result.files = write_check(result, command)
+            result.files = write_check(result, command, truth)
             if history:
                 from workbench import history as run_history
-=======
-        def calibrate():
-            return run_calibration(design, dataset, sbc, seed, workers=workers, cluster=cluster,
-                                   folder=folder, quiet=not progress)
-    command = command or _api_command(target, data, options, priors, seed, sbc)
-    run = harness.run_check(design, dataset, info, seed, settings, relax=relax, workers=workers,
-                            calibrate=calibrate, say=say, progress=progress,
-                            fitter=fitter_for(cache, info.sha256))
-    doc = writers.summary(run)
-    doc["manifest"] = writers.clean(plans.manifest(
-        command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=run.started,
-        plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
-              "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
-              "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
-              "sampling": settings.to_dict()}))
-    result = CheckResult(run, doc, folder)
-    if write:
-        result.files = write_check(result, command, truth)
-        if history:
-            from workbench import history as run_history
->>>>>>> report-estimates
 
                 run_history.record(history_path(history), run_history.check_entry(
                     "check", run.design, doc, result.files["report"]))

@@ -26,7 +26,6 @@ def run(recipe_name: str = "threshold-geometry", *, seed: int = 1, out=None, for
     scenario = recipe.demo(np.random.default_rng([DEMO_SEED, seed]))
     created = not (out and Path(out).exists())
     folder = writers.run_folder(str(out) if out else None, f"demo-{recipe_name}", force)
-<<<<<<< HEAD
     with writers.kept_unless_empty(folder, created):
         data_path = Path(folder) / "demo-data.csv"
         writers.atomic_write(data_path, scenario.table.to_csv(index=False))
@@ -37,22 +36,7 @@ def run(recipe_name: str = "threshold-geometry", *, seed: int = 1, out=None, for
         say(f"true values: {scenario.truth}")
         return api.check(recipe_name, data_path, options=scenario.options, seed=seed, out=folder,
                          force=True, settings=settings, recipe_folders=recipe_folders, say=say,
-                         progress=progress,
+                         progress=progress, truth=scenario.truth,
                          command=f"workbench check {recipe_name} --data {data_path} "
                                  + " ".join(f"--set {k}={v}" for k, v in scenario.options.items())
                                  + f" --seed {seed}")
-=======
-    data_path = Path(folder) / "demo-data.csv"
-    writers.atomic_write(data_path, scenario.table.to_csv(index=False))
-    writers.write_json(Path(folder) / "demo-truth.json",
-                       {"title": scenario.title, "story": scenario.story, "truth": scenario.truth,
-                        "options": scenario.options})
-    say(f"{scenario.title}: {scenario.story}")
-    say(f"true values: {scenario.truth}")
-    return api.check(recipe_name, data_path, options=scenario.options, seed=seed, out=folder,
-                     force=True, settings=settings, recipe_folders=recipe_folders, say=say,
-                     progress=progress, truth=scenario.truth,
-                     command=f"workbench check {recipe_name} --data {data_path} "
-                             + " ".join(f"--set {k}={v}" for k, v in scenario.options.items())
-                             + f" --seed {seed}")
->>>>>>> report-estimates

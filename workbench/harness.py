@@ -17,11 +17,7 @@ from datetime import datetime, timezone
 from importlib import metadata
 from typing import Any, Callable
 
-<<<<<<< HEAD
-from workbench import checks, engine, executor, interrupts, verdicts
-=======
-from workbench import checks, engine, estimates, interrupts, verdicts
->>>>>>> report-estimates
+from workbench import checks, engine, estimates, executor, interrupts, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress

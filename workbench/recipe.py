@@ -406,13 +406,8 @@ def make_design(recipe: Recipe, options: Mapping[str, Any], priors: Mapping[str,
             close = get_close_matches(name, known, n=1)
             hint = f"; did you mean '{close[0]}'?" if close else f" (parameters: {', '.join(sorted(known))})"
             raise OptionError(f"--prior: recipe '{recipe.name}' has no parameter '{name}'{hint}")
-<<<<<<< HEAD
         spec = parse_prior(str(text), where=f"--prior {name}")
         default = next(p.prior for p in recipe.parameters if p.name == name)
         check_support(spec, parse_prior(default, where=f"prior of {name}"), name, f"--prior {name}")
         checked[name] = str(spec)
-    return Design(recipe, values, checked)
-=======
-        checked[name] = str(parse_prior(str(text), where=f"--prior {name}"))
     return Design(recipe, values, checked, tuple(k for k in options if k in values))
->>>>>>> report-estimates
