@@ -110,3 +110,36 @@ def test_the_headline_of_a_run_with_nothing_wrong_names_what_was_not_checked():
     line = verdicts.headline(verdicts.decide(DECLARED, [quiet]))
     assert line.startswith("Nothing is broken or doubtful: 1 of 5 assumptions hold.")
     assert "Not checked: priors, computation, implementation, time_homogeneity." in line
+
+
+def stuck_chains():
+    """Base-model sampling with two chain groups apart: computation broken."""
+    return Finding("computation", "rhat", "computation:rhat", 1.55, None, "Largest split R-hat 1.55",
+                   {"parameter": "spread", "chain_means": [0.031, 0.026, 0.026, 0.026],
+                    "chain_sds": [0.001] * 4, "groups": [[1, 2, 3], [0]],
+                    "group_means": [0.026, 0.031], "ess_bulk": 7.0, "draws": 1600, "chains": 4})
+
+
+def sampling_under(cause, rhat, divergences=0):
+    return Finding("computation", "computation_under_relaxation", "sampling|dormant", rhat, None,
+                   "relaxed", {"relaxation_of": cause, "max_rhat": rhat, "divergences": divergences})
+
+
+def test_stuck_chains_that_the_cause_relaxation_frees_are_a_symptom_despite_monte_carlo_noise():
+    # The relaxed model's R-hat of 1.012 from 4 chains of 400 draws is noise, not trouble.
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), stuck_chains(),
+                     sampling_under("no_missing_exit", 1.012)])
+    assert judged["computation"].verdict == "doubtful"
+    assert judged["computation"].advice.startswith("Revisit after addressing 'no_missing_exit'")
+
+
+def test_stuck_chains_that_stay_stuck_under_the_relaxation_stay_broken():
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), stuck_chains(),
+                     sampling_under("no_missing_exit", 1.3)])
+    assert judged["computation"].verdict == "broken"
+
+
+def test_a_relaxed_model_that_diverges_does_not_excuse_the_sampler():
+    judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), stuck_chains(),
+                     sampling_under("no_missing_exit", 1.001, divergences=12)])
+    assert judged["computation"].verdict == "broken"
