@@ -138,3 +138,32 @@ def test_rerun_with_the_same_seed_gives_the_same_numbers(checked, throwing_csv, 
     first = xr.open_datatree(checked / "posterior.nc", engine="h5netcdf")["posterior"]["spread"].values
     second = xr.open_datatree(out / "posterior.nc", engine="h5netcdf")["posterior"]["spread"].values
     np.testing.assert_array_equal(first, second)
+
+
+def test_notebook_finds_its_table_relative_to_the_run_folder(checked, throwing_csv):
+    import hashlib
+    from pathlib import Path
+
+    import nbformat
+
+    notebook = nbformat.read(checked / "notebook.ipynb", as_version=4)
+    source = "\n".join(c.source for c in notebook.cells if c.cell_type == "code")
+    (path,) = re.findall(r"^DATA = '([^']+)'$", source, flags=re.M)
+    assert not Path(path).is_absolute()
+    assert (checked / path).resolve() == Path(throwing_csv).resolve()
+    assert hashlib.sha256(Path(throwing_csv).read_bytes()).hexdigest() in source
+
+
+def test_a_normal_run_prints_no_library_warning(throwing_csv, tmp_path):
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    workbench = Path(sys.executable).with_name("workbench")
+    done = subprocess.run([str(workbench), "check", "threshold-geometry", "--data", throwing_csv,
+                           "--set", "clearance=0.25", "--out", str(tmp_path / "run"), "--quiet",
+                           "--no-relax", "--draws", "100", "--tune", "100",
+                           "--history", str(tmp_path / "h.sqlite")],
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    assert "Warning" not in done.stderr and "warn" not in done.stderr.lower(), done.stderr

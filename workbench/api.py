@@ -173,7 +173,7 @@ def write_check(result: CheckResult, command: str, truth: Mapping[str, Any] | No
     files = {
         "summary": writers.write_json(folder / "summary.json", result.summary),
         "posterior": writers.write_posterior(folder / "posterior.nc", run.fit.idata),
-        "notebook": writers.atomic_write(folder / "notebook.ipynb", notebook.for_check(run, result.summary)),
+        "notebook": writers.atomic_write(folder / "notebook.ipynb", notebook.for_check(run, result.summary, folder)),
         "report": writers.atomic_write(folder / "report.html", report_html.render(run, result.summary, command, truth)),
     }
     return files

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import html
 import json
+import os
 import re
 from pathlib import Path
 
@@ -110,10 +111,38 @@ def _intro(title: str, doc: dict, what: str) -> nbformat.NotebookNode:
     )
 
 
-def for_check(run, summary: dict) -> str:
-    """Notebook text: load the data, rebuild the design, refit with the same seed."""
+def relative_to(folder, path) -> str:
+    """``path`` as seen from ``folder`` (the run folder the notebook opens in).
+
+    A reviewer who copies the run folder together with the table, or opens
+    the repository elsewhere, keeps a notebook that finds its data; an
+    absolute path would name one machine's disk.
+    """
+    if folder is None:
+        return str(Path(path).resolve())
+    try:
+        return os.path.relpath(Path(path).resolve(), Path(folder).resolve())
+    except ValueError:  # another drive: no relative path exists
+        return str(Path(path).resolve())
+
+
+def _data_check_cell(path: str, sha256: str):
+    """A cell that stops when the table is not the one the run read."""
+    return new_code_cell(
+        "import hashlib\n\n"
+        f"DATA = {path!r}\n"
+        f"assert hashlib.sha256(Path(DATA).read_bytes()).hexdigest() == {sha256!r}, "
+        "'the table differs from the one this run read'")
+
+
+def for_check(run, summary: dict, folder=None) -> str:
+    """Notebook text: load the data, rebuild the design, refit with the same seed.
+
+    Paths (the table, a model file) are written relative to ``folder``.
+    """
     design = run.design
-    target = design.recipe.source if getattr(design, "is_model_file", False) else design.name
+    target = (relative_to(folder, design.recipe.source) if getattr(design, "is_model_file", False)
+              else design.name)
     settings = run.settings
     plan = (summary.get("manifest") or {}).get("plan") or {}
     sbc = int(plan.get("sbc") or 0)
@@ -122,10 +151,11 @@ def for_check(run, summary: dict) -> str:
     cells = [
         _intro(design.label(), summary, "refits the design"),
         new_code_cell(IMPORTS),
+        _data_check_cell(relative_to(folder, run.data_info.path), run.data_info.sha256),
         new_code_cell(
             f"result = workbench.check(\n"
             f"    {target!r},\n"
-            f"    {str(Path(run.data_info.path).resolve())!r},\n"
+            f"    DATA,\n"
             f"    options={json.dumps({k: option_text(v) for k, v in design.options.items()})},\n"
             f"    priors={json.dumps(dict(design.priors))},\n"
             f"    seed={run.seed},\n"
