@@ -312,6 +312,8 @@ def test_failed_simulation_is_recorded_with_its_reason_and_the_run_goes_on(desig
     assert len(result.replicates) + len(result.failures) == 6
     assert all(f["reason"] == "simulation failed: ValueError: spread out of range"
                for f in result.failures)
+    # Each left-out replicate carries the generating values that made it fail.
+    assert all(f["truth"]["spread"][0] > 0.05 for f in result.failures)
 
 
 # --- without an independent simulator ------------------------------------------------------
@@ -397,6 +399,19 @@ def test_figures_have_one_panel_per_ranked_quantity(reference):
         fig = draw(reference)
         titles = [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()]
         assert [t.split()[0] for t in titles] == list(reference.ranks)
+
+
+def test_few_replicates_get_no_rank_histogram_of_two_bars():
+    from workbench.report.calibration_plots import rank_histogram_figure
+
+    # 25 replicates among L + 1 = 100 ranks allow 2 bars of 10 ranks each: no histogram.
+    rng = np.random.default_rng(3)
+    records = {i: {"index": i, "failed": None, "ranks": {"spread": int(r)}}
+               for i, r in enumerate(rng.integers(0, 100, size=25))}
+    fig = rank_histogram_figure(sbc.summarise(records, 25, 99))
+    text = " ".join(t.get_text() for ax in fig.axes for t in ax.texts)
+    assert "too few for a rank histogram" in text
+    assert not any(ax.patches for ax in fig.axes)
 
 
 def test_figures_draw_user_names_as_written(tmp_path):

@@ -295,7 +295,7 @@ class _Compiled:
                 observed = {container: np.asarray(drawn[rv]) for rv, container in outcomes.items()}
         except Exception as err:  # the user's simulator: record, never abort the run
             record["failed"] = f"simulation failed: {type(err).__name__}: {err}"
-            return record
+            return _with_truth(record, truth)
         settings = job.settings
         for fit_seed in (seeds["fit"], seeds["refit"]):
             try:
@@ -303,10 +303,10 @@ class _Compiled:
                                                         self.free)
             except Exception as err:  # a sampler error is a failed replicate
                 record["failed"] = f"fit failed: {type(err).__name__}: {err}"
-                return record
+                return _with_truth(record, truth)
             if not all(np.isfinite(v).all() for v in posterior.values()):
                 record["failed"] = "fit failed: non-finite posterior draws"
-                return record
+                return _with_truth(record, truth)
             min_ess = _min_ess(posterior)
             if min_ess >= job.L or fit_seed == seeds["refit"]:
                 break
@@ -331,6 +331,7 @@ class _Compiled:
                       draws=total)
         if divergences:
             record["failed"] = f"{divergences} divergent transitions"
+            _with_truth(record, truth)
         return record
 
     def _loglik(self, containers, values, observed) -> float:
@@ -339,6 +340,18 @@ class _Compiled:
         args += [np.asarray(observed[c], dtype=d) for c, d in zip(containers, dtypes[len(values):])]
         value = float(fn(*args))
         return value if not np.isnan(value) else -np.inf
+
+
+# Generating values kept with a failed replicate, per parameter: enough
+# elements to see where in the prior the fits fail, few enough for a line.
+TRUTH_ELEMENTS = 6
+
+
+def _with_truth(record: dict, truth: dict) -> dict:
+    """Keep the generating values of a failed replicate (the report lists them)."""
+    record["truth"] = {name: [round(float(x), 6) for x in np.ravel(value)[:TRUTH_ELEMENTS]]
+                       for name, value in truth.items()}
+    return record
 
 
 def _sample_arrays(sampler, seed: int, settings: Settings, observed, names):
@@ -771,7 +784,8 @@ def summarise(records: dict[int, dict], sims: int, L: int, simulator: str = SIMU
     """
     finished = {i: r for i, r in records.items() if i < sims}
     ok = sorted(i for i, r in finished.items() if not r.get("failed"))
-    failures = [{"index": i, "reason": finished[i]["failed"]}
+    failures = [{"index": i, "reason": finished[i]["failed"],
+                 **({"truth": finished[i]["truth"]} if finished[i].get("truth") else {})}
                 for i in sorted(finished) if finished[i].get("failed")]
     names: list[str] = list(finished[ok[0]]["ranks"]) if ok else []
     ranks = {name: np.array([finished[i]["ranks"][name] for i in ok], dtype=np.int64) for name in names}

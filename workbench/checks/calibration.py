@@ -84,13 +84,14 @@ def calibration_findings(result, approximate_likelihood: str = "") -> list[Findi
         check="calibration:failures",
         value=share,
         detail=(
-            f"{len(result.failures)} of {finished} replicates failed"
+            f"{len(result.failures)} of {finished} replicates left out of the ranks"
             + (": " + ", ".join(f"{n} {k}" for k, n in sorted(reasons.items())) if reasons else "")
             + (f"; {result.low_ess} kept an ESS below {result.L}" if result.low_ess else "")
             + "."
         ),
         numbers={
             "failed": len(result.failures),
+            "diverged": reasons.get("diverged", 0),
             "finished": finished,
             "sims": result.sims,
             "reasons": reasons,

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import functools
 import math
+import textwrap
 
 import numpy as np
 from matplotlib.figure import Figure
@@ -33,6 +34,10 @@ from workbench.uniformity import BAND_LEVEL, ecdf_counts, ecdf_points, simultane
 HISTOGRAM_BAND = 0.99
 # Aim for about this many ranks per histogram bar so bars are not all noise.
 RANKS_PER_BAR = 10
+# Fewer bars than this say nothing a histogram should (two bars under a band
+# covering the plot): below MIN_BARS * RANKS_PER_BAR replicates only the ECDF
+# figure shows the ranks.
+MIN_BARS = 5
 COLUMNS = 3
 
 
@@ -158,6 +163,10 @@ def rank_histogram_figure(result, names=None, bins: int | None = None,
     if bins is None:
         fits = [d for d in range(2, L + 2) if (L + 1) % d == 0 and n / d >= RANKS_PER_BAR]
         bins = max(fits) if fits else 1
+        if bins < MIN_BARS:
+            return _empty(f"{n} replicates are too few for a rank histogram (about "
+                          f"{RANKS_PER_BAR} per bar and at least {MIN_BARS} bars): the ECDF "
+                          f"figure shows the ranks.")
     if (L + 1) % bins:
         raise ValueError(f"bins: expected a divisor of L + 1 = {L + 1}; found {bins}")
     fig, axes = _grid(len(chosen), columns)
@@ -185,5 +194,5 @@ def _empty(message: str) -> Figure:
     fig = Figure(figsize=(4, 1.2))
     ax = fig.subplots()
     ax.axis("off")
-    ax.text(0.5, 0.5, message, ha="center", va="center", fontsize=9, color=INK)
+    ax.text(0.5, 0.5, textwrap.fill(message, 70), ha="center", va="center", fontsize=9, color=INK)
     return fig

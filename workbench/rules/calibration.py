@@ -93,13 +93,19 @@ def calibration_failures(f: Finding) -> Judgement:
         diverged = n.get("reasons", {}).get("diverged", 0)
         steps = (" Most of them diverged: rerun with smaller steps (--target-accept 0.95) before "
                  "reading the ranks." if diverged * 2 > n["failed"] else "")
+        other = n["failed"] - diverged
         return Judgement(
-            1, f"{share:.0%} of the calibration fits failed, so the ranks describe only the "
-               f"prior draws the sampler could fit.",
+            1, f"{share:.0%} of the calibration fits were left out ({diverged} diverged, {other} "
+               f"failed otherwise), so the ranks describe only the prior draws the sampler could "
+               f"fit. A fit that diverged is left out because its draws need not follow the "
+               f"posterior (Betancourt 2017); past {FAILURE_SHARE_DOUBTFUL:.0%} left out, the "
+               f"selection alone can bend the ranks (Talts et al. 2018).",
             "Look at the failed replicates' generating values: fits that fail in one region "
             "of the prior point to a region the model (or the prior) handles badly." + steps,
             strength=share)
     if n["failed"]:
-        return Judgement(0, f"{n['failed']} of {n['finished']} fits failed; too few to weaken "
+        diverged = n.get("diverged", n.get("reasons", {}).get("diverged", 0))
+        return Judgement(0, f"{n['failed']} of {n['finished']} fits were left out ({diverged} "
+                            f"diverged); at most {FAILURE_SHARE_DOUBTFUL:.0%}, too few to weaken "
                             f"the calibration.")
     return Judgement(0, "Every calibration fit ran without divergences.")
