@@ -15,7 +15,7 @@ import sys
 import warnings
 
 from workbench import interrupts
-from workbench.errors import OptionError, WorkbenchError
+from workbench.errors import OptionError, WorkbenchError, WorkbenchWarning
 
 PROG = "workbench"
 
@@ -63,9 +63,10 @@ def main(argv: list[str] | None = None, last: bool = False) -> int:
             parser.print_help()
             raise OptionError(f"expected a command ({', '.join(commands())}); found none")
         # Library warnings stay off the terminal (a check keeps them in its
-        # run folder's warnings.log).
+        # run folder's warnings.log); the workbench's own are shown.
         with interrupts.watched(last), warnings.catch_warnings():
             warnings.simplefilter("ignore")
+            warnings.simplefilter("default", WorkbenchWarning)
             code = commands()[args.command].run(args)
             interrupts.raise_if_interrupted()
         return code

@@ -15,6 +15,10 @@ def did_you_mean(name: str, known: Iterable[str]) -> str:
     return f"; did you mean '{close[0]}'?" if close else ""
 
 
+class WorkbenchWarning(UserWarning):
+    """Something the user should know that does not stop the run (shown, never hidden)."""
+
+
 class WorkbenchError(Exception):
     """A problem the user can fix; the message says what was expected and found."""
 

@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 from workbench import tables, writers
+from workbench.errors import WorkbenchWarning
 
 FORMAT = "workbench.fit/1"
 # Cache folder used by compare and audit unless told otherwise.
@@ -34,7 +35,7 @@ DEFAULT_FOLDER = Path("reports") / ".fit-cache"
 TREE_ARGUMENTS = ("predictive", "prior")
 
 
-class CorruptFitWarning(UserWarning):
+class CorruptFitWarning(WorkbenchWarning):
     """A cached fit did not match its recorded SHA-256 and was recomputed."""
 
 

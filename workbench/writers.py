@@ -151,12 +151,20 @@ def warnings_logged(folder: Path | None) -> Iterator[None]:
     Without a folder (``write=False``) they are dropped: the run's numbers
     carry what matters (a NaN R-hat of a constant, say, is reported as such).
     """
+    from workbench.errors import WorkbenchWarning
+
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        yield
-    if folder is not None and caught and folder.is_dir():
+        try:
+            yield
+        finally:
+            library = [w for w in caught if not issubclass(w.category, WorkbenchWarning)]
+            own = [w for w in caught if issubclass(w.category, WorkbenchWarning)]
+    for w in own:  # the workbench's own warnings are for the user to see
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    if folder is not None and library and folder.is_dir():
         lines = sorted({f"{w.category.__name__}: {w.message} ({Path(w.filename).name}:{w.lineno})"
-                        for w in caught})
+                        for w in library})
         atomic_write(folder / WARNINGS_LOG, "\n".join(lines) + "\n")
 
 
