@@ -143,3 +143,16 @@ def test_a_relaxed_model_that_diverges_does_not_excuse_the_sampler():
     judged = by_key([relaxation("no_missing_exit", "dormant", 40.0), stuck_chains(),
                      sampling_under("no_missing_exit", 1.001, divergences=12)])
     assert judged["computation"].verdict == "broken"
+
+
+def test_milder_advice_of_the_same_assumption_is_kept_after_the_worst(monkeypatch):
+    # Chains that disagree (broken) beside a funnel (doubtful): both next steps reach the
+    # report, the broken line's first, then the assumption's own advice, then the milder one.
+    from workbench.verdicts import Judgement
+
+    monkeypatch.setitem(verdicts._RULES, "stuck", lambda f: Judgement(2, "", "Run longer chains.", 5.0))
+    monkeypatch.setitem(verdicts._RULES, "neck", lambda f: Judgement(1, "", "Use the non-centred form."))
+    findings = [Finding("time_homogeneity", kind, kind, 1.0, None, kind, {}) for kind in ("neck", "stuck")]
+    judged = by_key(findings)["time_homogeneity"]
+    assert judged.verdict == "broken"
+    assert judged.advice == "Run longer chains. Split into eras. Use the non-centred form."

@@ -140,9 +140,14 @@ def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> 
             verdicts.append(verdict)
             continue
         worst = max(j.level for _, j in judged)
-        advice = [j.advice for _, j in judged if j.level == worst and j.level > 0 and j.advice]
+        # Every piece of advice that applies, the worst level's first (strongest
+        # evidence first), then the assumption's own advice, then the milder ones.
+        ranked = sorted(((j.level, j.strength, j.advice) for _, j in judged
+                         if j.level > 0 and j.advice), key=lambda t: (-t[0], -t[1]))
+        advice = [a for level, _, a in ranked if level == worst]
         if worst > 0 and default_advice:
             advice.append(default_advice)
+        advice += [a for level, _, a in ranked if level < worst]
         strength = sum(j.strength for _, j in judged if j.level == worst) if worst else 0.0
         verdicts.append(
             Verdict(key, statement, LEVELS[worst], judged, " ".join(dict.fromkeys(advice)), strength)
