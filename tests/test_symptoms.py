@@ -156,3 +156,28 @@ def test_milder_advice_of_the_same_assumption_is_kept_after_the_worst(monkeypatc
     judged = by_key(findings)["time_homogeneity"]
     assert judged.verdict == "broken"
     assert judged.advice == "Run longer chains. Split into eras. Use the non-centred form."
+
+
+# --- a prior predictive miss that the likelihood owns ---------------------------------------
+
+
+def coverage(p, posterior_p, prior_sd_ratio):
+    return Finding(PRIORS, "prior_coverage", "prior_coverage:y:sd", 40.0, p, "observed sd",
+                   {"share_below": 1.0, "low": 0.0, "high": 10.0, "posterior_p": posterior_p,
+                    "prior_sd_ratio": prior_sd_ratio})
+
+
+def test_a_statistic_the_fitted_model_misses_too_is_not_blamed_on_the_priors():
+    # Overdispersed counts: neither the prior nor the posterior predictive makes their sd.
+    judged = by_key([coverage(0.0005, 0.001, prior_sd_ratio=0.1)])
+    assert judged[PRIORS].verdict == "holds"
+    assert "likelihood" in " ".join(j.sentence for _, j in judged[PRIORS].evidence)
+
+
+def test_a_statistic_the_fitted_model_makes_is_a_prior_data_conflict():
+    assert by_key([coverage(0.0005, 0.4, prior_sd_ratio=0.1)])[PRIORS].verdict == "broken"
+
+
+def test_a_prior_that_holds_the_fit_away_from_the_data_is_still_blamed():
+    # The posterior barely moved from its prior: the prior may be what the fit cannot leave.
+    assert by_key([coverage(0.0005, 0.001, prior_sd_ratio=0.97)])[PRIORS].verdict == "broken"

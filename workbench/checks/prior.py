@@ -13,6 +13,9 @@ References
 ----------
 Box, G. E. P. (1980). Sampling and Bayes' inference in scientific modelling
 and robustness. JRSS A 143(4), 383-430 (prior predictive checking).
+Evans, M. and Moshonov, H. (2006). Checking for prior-data conflict.
+Bayesian Analysis 1(4), 893-914 (check the sampling model first, then the
+prior).
 Kallioinen, N., Paananen, T., Bürkner, P.-C. and Vehtari, A. (2024).
 Detecting and diagnosing prior and likelihood sensitivity with power-scaling.
 Statistics and Computing 34, 57.
@@ -57,9 +60,12 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
     if "prior_predictive" not in fit.idata.children:
         return []
     prior_pred = fit.draws(group="prior_predictive")
+    post_pred = (fit.draws(group="posterior_predictive")
+                 if "posterior_predictive" in fit.idata.children else {})
     observed = fit.idata["observed_data"].to_dataset()
     spread = not likelihood_approximation(context.design, context.data)
     words = outcome_words(context.design)
+    held = _widest_sd_ratio(fit)
     findings = []
     for name in observed.data_vars:
         if name not in prior_pred:
@@ -73,8 +79,14 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
                 # The model fixes this statistic (counts that sum to the units
                 # exposed) and the data have it: it says nothing about the priors.
                 continue
-            below = float(np.mean(simulated < o) + 0.5 * np.mean(simulated == o))
+            below = _share_below(simulated, o)
             tail = min(below, 1.0 - below)
+            # The fitted model's own predictive: a statistic it misses too is the
+            # likelihood's to explain before any prior (Evans and Moshonov 2006).
+            posterior_p = None
+            if name in post_pred:
+                fitted = _share_below(_summaries(post_pred[name], spread)[stat], o)
+                posterior_p = 2.0 * min(fitted, 1.0 - fitted)
             findings.append(
                 Finding(
                     assumption=PRIORS,
@@ -86,11 +98,40 @@ def prior_predictive_coverage(context: Context) -> list[Finding]:
                         f"Observed {stat} of {words.get(name, name)} is {o:.4g}; the prior predictive puts 98% "
                         f"of its mass between {lo:.4g} and {hi:.4g} ({below:.1%} below the observed)."
                     ),
-                    numbers={"share_below": below, "low": float(lo), "high": float(hi)},
+                    numbers={"share_below": below, "low": float(lo), "high": float(hi),
+                             "posterior_p": posterior_p, "prior_sd_ratio": held},
                     figure="prior-predictive",
                 )
             )
     return findings
+
+
+def _widest_sd_ratio(fit) -> float | None:
+    """The largest posterior/prior sd ratio over the free parameters' elements.
+
+    Positive parameters are compared on the log scale. Near 1 the prior, not
+    the data, sets some parameter: a fitted model that misses a statistic may
+    then be held there by that prior.
+    """
+    if "prior" not in fit.idata.children or fit.model is None:
+        return None
+    prior, posterior = fit.draws(group="prior"), fit.draws()
+    ratios = []
+    for name in free_parameters(fit):
+        if name not in prior:
+            continue
+        a = prior[name].reshape(len(prior[name]), -1).astype(float)
+        b = posterior[name].reshape(len(posterior[name]), -1).astype(float)
+        if (a > 0).all() and (b > 0).all():
+            a, b = np.log(a), np.log(b)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ratio = b.std(axis=0) / a.std(axis=0)
+        ratios += [float(r) for r in ratio if np.isfinite(r)]
+    return max(ratios) if ratios else None
+
+
+def _share_below(simulated: np.ndarray, observed: float) -> float:
+    return float(np.mean(simulated < observed) + 0.5 * np.mean(simulated == observed))
 
 
 def _prior_tails(prior: dict, posterior: dict, names: list[str]):

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from workbench.findings import Finding
 from workbench.verdicts import Judgement, rule
+from workbench.rules.computation import BARELY_CONTRACTS
+from workbench.wording import p_equals
 
 # An observed summary outside the central 99.8% of its prior predictive
 # distribution means the priors give data like these almost no mass; outside
@@ -11,6 +13,14 @@ from workbench.verdicts import Judgement, rule
 # predictive checks; Gabry et al. 2019, Visualization in Bayesian workflow).
 COVERAGE_BROKEN_P = 0.002
 COVERAGE_DOUBTFUL_P = 0.02
+# A statistic the fitted model's posterior predictive also puts outside its
+# central 98% is missed by the likelihood: the priors are not to blame for it
+# (a genuine conflict still shows as a posterior beyond its prior draws).
+LIKELIHOOD_MISS_P = COVERAGE_DOUBTFUL_P
+# ... but only when the data, not the priors, set every parameter: a prior so
+# tight that some posterior sd stays above 0.9 of its prior sd can itself
+# hold the fitted model away from the data (Schad et al. 2021 call such a
+# parameter barely informed; the same bound serves the computation rules).
 # Power-scaling sensitivity above 0.05 counts as sensitive (the default
 # threshold of Kallioinen et al. 2024); sensitivity to both prior and
 # likelihood is their signature of prior-data conflict.
@@ -27,6 +37,15 @@ MODEL_FILE_ADVICE = ("Widen or move the prior of {name} after checking its units
 @rule("prior_coverage")
 def coverage(f: Finding) -> Judgement:
     p = f.p_value
+    fitted, held = f.numbers.get("posterior_p"), f.numbers.get("prior_sd_ratio")
+    data_led = held is not None and held < BARELY_CONTRACTS
+    if p < COVERAGE_DOUBTFUL_P and fitted is not None and fitted < LIKELIHOOD_MISS_P and data_led:
+        # Evans and Moshonov (2006): a prior-data conflict is only read once the
+        # sampling model fits; here the fitted model cannot make the statistic
+        # either, so the miss belongs to the likelihood (the other assumptions).
+        return Judgement(0, f"The fitted model misses this statistic too ({p_equals(fitted)} under "
+                            f"its posterior predictive): the likelihood cannot make data like "
+                            f"these whatever the priors, so it is no evidence against them.")
     if p < COVERAGE_BROKEN_P:
         return Judgement(2, "The priors give data like these almost no probability.",
                          "Compare each prior with what is known about the process; a prior "
