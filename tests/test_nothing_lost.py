@@ -20,6 +20,7 @@ from __future__ import annotations
 import ast
 import json
 import os
+import re
 import signal
 import sqlite3
 import subprocess
@@ -207,9 +208,11 @@ def test_every_output_reaches_its_name_by_a_rename(previous):
 
 def test_sampling_progress_in_a_log_is_plain_lines_with_counts(previous):
     # 2 chains x (100 warm-up + 100 draws); standard error is a pipe, not a terminal.
-    lines = [line for line in previous["stderr"].splitlines() if line.startswith("threshold-geometry: sampling:")]
-    assert lines[0] == "threshold-geometry: sampling: 0/400 done"
-    assert lines[-1].startswith("threshold-geometry: sampling: 400/400 done")
+    # Lines name the design as typed (threshold-geometry:clearance=...).
+    lines = [line.split(": ", 1)[1] for line in previous["stderr"].splitlines()
+             if re.match(r"threshold-geometry(:\S+)?: sampling:", line)]
+    assert lines[0] == "sampling: 0/400 done"
+    assert lines[-1].startswith("sampling: 400/400 done")
     assert "\r" not in previous["stderr"]
 
 
