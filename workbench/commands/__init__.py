@@ -15,25 +15,24 @@ def key_value(text: str) -> tuple[str, str]:
     return key.strip(), value.strip()
 
 
-def whole_number(text: str) -> int:
+def _at_least(text: str, low: int, expected: str) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number; found {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a number >= 0; found {text!r}")
+        raise argparse.ArgumentTypeError(f"expected {expected}; found {text!r}") from None
+    if value < low:
+        raise argparse.ArgumentTypeError(f"expected {expected}; found {text!r}")
     return value
+
+
+def whole_number(text: str) -> int:
+    """A whole number >= 0."""
+    return _at_least(text, 0, "a whole number >= 0")
 
 
 def positive_number(text: str) -> int:
     """A whole number >= 1 (a count of lines, replicates, processes)."""
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 1; found {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 1; found {text!r}")
-    return value
+    return _at_least(text, 1, "a whole number >= 1")
 
 
 def seed_number(text: str) -> int:
