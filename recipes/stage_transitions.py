@@ -143,6 +143,17 @@ POOLING = Option(
 # --- validation ------------------------------------------------------------------------
 
 
+def periods_to_compare(data: Dataset) -> str:
+    """Why the table cannot show a drift over periods ("" when it can)."""
+    # A drift needs moves seen over at least two steps: stage counts show a
+    # step between consecutive periods, transition counts one per period.
+    periods = len(np.unique(data["period"]))
+    steps = periods if data.extra.get("layout") == TRANSITION_COUNTS else periods - 1
+    if steps >= 2:
+        return ""
+    return "the table follows its units over a single step between periods, so nothing can drift"
+
+
 def allowed_moves(stages, absorbing, moves) -> np.ndarray:
     """Boolean matrix (from, to) of the moves the chain allows.
 
@@ -916,6 +927,7 @@ RECIPE = Recipe(
                                   null=0.0, negligible=0.05, planted=0.4),
             advice="The chain changes over time: split the table into eras (a group column) or "
                    "let the probabilities depend on period.",
+            informed_by=periods_to_compare,
         ),
         Assumption(
             key="independent_units",

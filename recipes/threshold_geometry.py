@@ -260,6 +260,14 @@ def dispersion_stat(data, outcomes, draws):
     return pearson_dispersion(outcomes["y"], mean, var)
 
 
+def distances_to_compare(data) -> str:
+    """Why the table cannot show a spread changing with distance ("" when it can)."""
+    # A trend on log distance needs three distances to be told from noise.
+    if len(np.unique(data["distance"])) >= 3:
+        return ""
+    return "the table holds fewer than three distances, so no trend with distance can show"
+
+
 def _relaxation(parameter, meaning, null, negligible, planted):
     return Relaxation(
         parameter=parameter,
@@ -348,6 +356,7 @@ RECIPE = Recipe(
             ),
             advice="Let the spread depend on distance (e.g. spread * distance^slope) or add a "
                    "second error source that grows with distance, such as a length error.",
+            informed_by=distances_to_compare,
         ),
         Assumption(
             key="angle_only",

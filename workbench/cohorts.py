@@ -648,6 +648,16 @@ def relaxation(build_model, parameter, meaning, null, negligible, applies=None, 
                       planted_options=planted_options)
 
 
+def cohorts_to_compare(data: Dataset) -> str:
+    """Why the table cannot tell cohorts of one group apart ("" when it can)."""
+    cohorts, groups = data["cohort"], data["group"]
+    if any(len(np.unique(cohorts[groups == g])) >= 2 for g in np.unique(groups)):
+        return ""
+    if len(np.unique(cohorts)) < 2:
+        return "the table holds one cohort, so no cohort can differ from another"
+    return "every group holds one cohort, so no cohort can differ from another of its group"
+
+
 def shared_assumptions(build_model) -> tuple[Assumption, ...]:
     """curve_shape, cohort_homogeneity and independent_units, with statistics and relaxations."""
     return (
@@ -684,6 +694,7 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Cohorts differ in timing: add a group column for what distinguishes them, or a "
                    "cohort effect on the timing scale.",
+            informed_by=cohorts_to_compare,
         ),
         Assumption(
             key="independent_units",

@@ -147,7 +147,8 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     standard error (a bar on a terminal, plain lines elsewhere).
     """
     names = list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
-                               if a.relaxation is not None and a.relaxation.applies_to(design.options)))
+                               if a.relaxation is not None and a.relaxation.applies_to(design.options)
+                               and not a.uninformed(data)))
     if not names:
         return {}
     seeds = engine.seed_stream(seed, *[f"relax:{n}" for n in names])
@@ -209,14 +210,16 @@ def run_check(
     context = checks.Context(design, data, main, relaxed, calibration)
     interrupts.raise_if_interrupted()
     say("running checks")
-    findings = checks.run_all(context)
+    # An assumption the table cannot inform is left unchecked, with the reason.
+    uninformed = {a.key: a.uninformed(data) for a in design.assumptions if a.uninformed(data)}
+    findings = [f for f in checks.run_all(context) if f.assumption not in uninformed]
     context.extras["computation"] = computation_summary(main.idata)
     context.extras["parameters"] = estimates.parameters(main.idata)
     derived = getattr(getattr(design, "recipe", None), "derived", None)
     if derived is not None:
         context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))
     declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
-    judged = verdicts.decide(declared, findings)
+    judged = verdicts.decide(declared, findings, uninformed)
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
                     context.extras, calibration, started, time.perf_counter() - start)
 

@@ -149,6 +149,15 @@ class Assumption:
     statistic: Statistic | None = None
     relaxation: Relaxation | None = None
     advice: str = ""
+    # ``informed_by(data) -> str``: "" when the table can inform the
+    # assumption, else why it cannot (one cohort cannot differ from others);
+    # the assumption is then `unchecked` with that reason, and neither its
+    # statistic nor its relaxation is judged.
+    informed_by: Callable[["Dataset"], str] | None = None
+
+    def uninformed(self, data: "Dataset") -> str:
+        """Why ``data`` cannot inform this assumption ("" when it can)."""
+        return self.informed_by(data) if self.informed_by is not None else ""
 
 
 @dataclass(frozen=True)

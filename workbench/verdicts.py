@@ -117,12 +117,16 @@ def judge(finding: Finding) -> Judgement:
     return fn(finding)
 
 
-def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> list[Verdict]:
+def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding],
+           uninformed: dict[str, str] | None = None) -> list[Verdict]:
     """One verdict per assumption, most urgent first.
 
     ``assumptions`` lists (key, statement, default advice) of the recipe; the
     generic ``priors``, ``computation`` and ``implementation`` are added.
+    ``uninformed`` maps an assumption the table cannot inform to the reason:
+    it is `unchecked`, whatever its findings.
     """
+    uninformed = uninformed or {}
     declared = [(k, s, "") for k, s in GENERIC_ASSUMPTIONS.items()] + list(assumptions)
     # An assumption checked by several statistics is declared once per statistic; judge it once.
     first: dict[str, tuple[str, str, str]] = {}
@@ -131,6 +135,10 @@ def decide(assumptions: list[tuple[str, str, str]], findings: list[Finding]) -> 
     declared = list(first.values())
     verdicts = []
     for key, statement, default_advice in declared:
+        if key in uninformed:
+            verdicts.append(Verdict(key, statement, UNCHECKED,
+                                    advice=f"Not checked: {uninformed[key]}."))
+            continue
         own = [f for f in findings if f.assumption == key]
         judged = [(f, judge(f)) for f in own]
         if not judged:
