@@ -79,6 +79,7 @@ from workbench.recipe import (
     Parameter,
     Recipe,
     Statistic,
+    choose_pooling,
 )
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend_score
 
@@ -234,12 +235,7 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     if source is not None:
         labels["from"] = stages
     data = Dataset(columns, labels=labels, source_rows=[[int(i)] for i in order])
-    pooling = options.get("pooling", "auto")
-    if pooling == "auto":
-        pooling = "partial" if len(group_labels) > 1 else "complete"
-    if pooling in {"none", "partial"} and len(group_labels) < 2:
-        raise DataError(f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
-                        f"found {len(group_labels)}")
+    pooling = choose_pooling(options, len(group_labels))
     spread = start_period.std()
     data.extra.update(
         layout=layout,

@@ -26,7 +26,6 @@ import pandas as pd
 from scipy.special import erf
 
 from workbench import tables
-from workbench.errors import DataError
 from workbench.recipe import (
     Assumption,
     Column,
@@ -36,6 +35,7 @@ from workbench.recipe import (
     Recipe,
     Relaxation,
     Statistic,
+    choose_pooling,
     flag,
 )
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend
@@ -101,14 +101,7 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     summed.columns["group"][order] = group
     for row, target in enumerate(order):
         summed.source_rows[target].append(row)
-    pooling = options.get("pooling", "auto")
-    if pooling == "auto":
-        pooling = "partial" if len(labels) > 1 else "complete"
-    if pooling in {"none", "partial"} and len(labels) < 2:
-        raise DataError(
-            f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
-            f"found {len(labels)}"
-        )
+    pooling = choose_pooling(options, len(labels))
     summed.extra["pooling"] = pooling
     return summed
 

@@ -86,3 +86,30 @@ def test_malformed_priors_are_refused_without_evaluation(text):
 def test_override_names_parameter_and_distribution():
     name, spec = parse_override("spread=lognormal(-3.5, 0.3)")
     assert name == "spread" and str(spec) == "lognormal(-3.5,0.3)"
+
+
+def test_automatic_pooling_keeps_two_groups_apart_and_pools_three():
+    # Two groups inform a group-level spread by one difference: no partial pooling then.
+    from workbench.recipe import choose_pooling
+
+    assert choose_pooling({}, 1) == "complete"
+    assert choose_pooling({"pooling": "auto"}, 2) == "none"
+    assert choose_pooling({}, 3) == "partial"
+    assert choose_pooling({"pooling": "partial"}, 2) == "partial"  # asked for: kept
+
+
+def test_every_recipe_pools_two_groups_the_same_way():
+    import numpy as np
+
+    from workbench import registry
+    from workbench.recipe import make_design
+
+    for name in ("threshold-geometry", "timing-curve", "stage-transitions"):
+        recipe = registry.load().get(name)
+        demo = recipe.demo(np.random.default_rng(1))
+        table = demo.table.copy()
+        key = "cohort" if "cohort" in table else "distance"
+        first = table[key].unique()[: max(1, len(table[key].unique()) // 2)]
+        table["group"] = np.where(table[key].isin(first), "east", "west")
+        data = make_design(recipe, demo.options, {}).validate(table)
+        assert data.extra["pooling"] == "none", name

@@ -37,7 +37,7 @@ import pandas as pd
 from workbench import curves, engine, tables
 from workbench.errors import DataError
 from workbench.recipe import (Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic,
-                              flag)
+                              choose_pooling, flag)
 from workbench.statistics import nearest_shortfall, pearson_dispersion, residual_trend, standardised
 
 # Keeps every cell probability strictly inside (0, 1) so the likelihood never
@@ -174,14 +174,7 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
         labels={"cohort": cohort_labels, "group": group_labels},
         source_rows=[[int(i)] for i in order],
     )
-    pooling = options.get("pooling", "auto")
-    if pooling == "auto":
-        pooling = "partial" if len(group_labels) > 1 else "complete"
-    if pooling in {"none", "partial"} and len(group_labels) < 2:
-        raise DataError(
-            f"option 'pooling={pooling}' needs a 'group' column with at least two groups; "
-            f"found {len(group_labels)}"
-        )
+    pooling = choose_pooling(options, len(group_labels))
     data.extra.update(
         outcomes=list(outcomes),
         pooling=pooling,

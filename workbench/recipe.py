@@ -295,6 +295,35 @@ class Dataset:
         return frame
 
 
+# Partial pooling learns how much groups differ from the groups themselves:
+# with two groups that spread rests on one difference and its posterior is
+# the prior's (a funnel the sampler diverges in), so automatic pooling keeps
+# the groups apart below this many (Gelman 2006, Prior distributions for
+# variance parameters in hierarchical models: few groups inform a group-level
+# scale little).
+PARTIAL_POOLING_MIN_GROUPS = 3
+
+
+def choose_pooling(options: Mapping[str, Any], groups: int) -> str:
+    """The pooling in force: ``options['pooling']`` or, for ``auto``, by group count.
+
+    ``auto`` gives ``complete`` for one group, ``none`` (each group its own
+    value) below :data:`PARTIAL_POOLING_MIN_GROUPS` and ``partial`` from there.
+    Raises :class:`DataError` when the option asks for groups the table lacks.
+    """
+    from workbench.errors import DataError
+
+    pooling = options.get("pooling", "auto")
+    if pooling == "auto":
+        if groups < 2:
+            return "complete"
+        return "partial" if groups >= PARTIAL_POOLING_MIN_GROUPS else "none"
+    if pooling in {"none", "partial"} and groups < 2:
+        raise DataError(f"option 'pooling={pooling}' needs a 'group' column with at least two "
+                        f"groups; found {groups}")
+    return pooling
+
+
 @dataclass
 class Design:
     """A recipe bound to the options and prior overrides of one run."""
