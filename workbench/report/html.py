@@ -213,6 +213,10 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
         lead = wording.readable(next((f"{f.detail} {j.sentence}" for f, j in v.evidence
                                       if j.level == worst), ""))
         figure_names = [f.figure for f, _ in v.evidence if f.figure and f.figure in figs]
+        # The evidence that decided the verdict leads with its figure.
+        decided = v.decided_by
+        if decided is not None and decided.figure in figure_names:
+            figure_names.insert(0, decided.figure)
         verdicts.append({
             "key": v.key, "anchor": anchor(v.key), "statement": v.statement, "verdict": v.verdict,
             "lead": lead.strip(), "advice": wording.readable(v.advice),
@@ -221,6 +225,7 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
                           "judgement": wording.readable(j.sentence), "level": j.level}
                          for f, j in v.evidence],
             "figures": [dict(figs[n], name=n) for n in dict.fromkeys(figure_names)],
+            "carriers": wording.gain_carriers(v.contributors),
         })
     used = {f["name"] for v in verdicts for f in v["figures"]}
     fit_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("fit")]
