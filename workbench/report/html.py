@@ -144,6 +144,16 @@ def figures(run) -> dict[str, dict]:
                 x, y, prior_predictive.get(name), predictive.get(name), covariate or "row", name)
             out[f"fit-{name}"] = {"uri": plots.to_data_uri(fig),
                                   "caption": f"{name}: observed against prior and posterior predictive."}
+    from workbench.rules.model_fit import loo_pit_reading
+
+    words = outcome_words(run.design)
+    for name, numbers in (run.extras.get("loo_pit") or {}).items():
+        shown = words.get(name, name)
+        out[f"loo-pit-{name}"] = {
+            "uri": plots.to_data_uri(plots.loo_pit(numbers, shown)),
+            "caption": f"{shown}: LOO-PIT ECDF minus the uniform CDF, with its "
+                       f"{numbers['level']:.0%} simultaneous band.",
+            "reading": loo_pit_reading(numbers, shown)[1]}
     for key, (stat_name, observed, replicated, p) in run.extras.get("ppc", {}).items():
         out[f"ppc-{key}"] = {"uri": plots.to_data_uri(plots.statistic_check(observed, replicated, stat_name, p)),
                              "caption": f"Targeted statistic '{stat_name}': observed against replicated data."}
@@ -228,7 +238,7 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
             "carriers": wording.gain_carriers(v.contributors),
         })
     used = {f["name"] for v in verdicts for f in v["figures"]}
-    fit_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("fit")]
+    fit_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith(("fit", "loo-pit-"))]
     sampler_figs = [dict(figs[k], name=k) for k in ("ranks", "pairs") if k in figs]
     loo_figs = [dict(figs[k], name=k) for k in ("pareto-k",) if k in figs]
     calibration_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("calibration-") and k not in used]
