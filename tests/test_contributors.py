@@ -5,26 +5,16 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from recipes.threshold_geometry import RECIPE
-from workbench import harness, writers
+import shared_runs
 from workbench.checks.loo import loo_of
 from workbench.checks.relaxation import CONTRIBUTOR_SHARE, TOP_CONTRIBUTORS, contributors, term_labels
-from workbench.recipe import make_design
-from workbench.report.html import render
 from workbench.wording import gain_carriers
 
 
 @pytest.fixture(scope="module")
-def planted(fast_settings):
+def planted():
     """The drone demo layout with an extra failure of 5% per attempt: angle_only is broken."""
-    design = make_design(RECIPE, {"clearance": "0.35"}, {})
-    demo = RECIPE.demo(np.random.default_rng(5))
-    base = design.validate(demo.table)
-    data = design.simulate(np.random.default_rng(6), base, {**demo.truth, "extra_failure": 0.05})
-    run = harness.run_check(design, data, harness.DataInfo("sim", "", data.rows), seed=2,
-                            settings=fast_settings, workers=1)
-    summary = writers.summary(run)
-    return run, summary, render(run, summary)
+    return shared_runs.planted_extra_failure()
 
 
 def by_key(summary, key):

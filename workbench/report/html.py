@@ -196,6 +196,20 @@ def figures(run) -> dict[str, dict]:
     return out
 
 
+def figure_order(verdict, available) -> list[str]:
+    """Names of an assumption's figures, the one of the deciding evidence first.
+
+    When the relaxed model's parameter decided a verdict its posterior leads;
+    when the targeted statistic decided, its predictive histogram does. The
+    rest follow in the order of the evidence.
+    """
+    names = [f.figure for f, _ in verdict.evidence if f.figure and f.figure in available]
+    decided = verdict.decided_by
+    if decided is not None and decided.figure in names:
+        names.insert(0, decided.figure)
+    return list(dict.fromkeys(names))
+
+
 def estimate_rows(run, summary: dict, truth=None) -> list[dict]:
     """The parameter table: each estimate with its true value when ``truth`` names it."""
     from workbench.estimates import beside_truth
@@ -222,11 +236,7 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
         worst = max((j.level for _, j in v.evidence), default=0)
         lead = wording.readable(next((f"{f.detail} {j.sentence}" for f, j in v.evidence
                                       if j.level == worst), ""))
-        figure_names = [f.figure for f, _ in v.evidence if f.figure and f.figure in figs]
-        # The evidence that decided the verdict leads with its figure.
-        decided = v.decided_by
-        if decided is not None and decided.figure in figure_names:
-            figure_names.insert(0, decided.figure)
+        figure_names = figure_order(v, figs)
         verdicts.append({
             "key": v.key, "anchor": anchor(v.key), "statement": v.statement, "verdict": v.verdict,
             "lead": lead.strip(), "advice": wording.readable(v.advice),
@@ -234,7 +244,7 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
                           "detail": wording.readable(f.detail),
                           "judgement": wording.readable(j.sentence), "level": j.level}
                          for f, j in v.evidence],
-            "figures": [dict(figs[n], name=n) for n in dict.fromkeys(figure_names)],
+            "figures": [dict(figs[n], name=n) for n in figure_names],
             "carriers": wording.gain_carriers(v.contributors),
         })
     used = {f["name"] for v in verdicts for f in v["figures"]}
