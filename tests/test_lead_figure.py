@@ -56,7 +56,7 @@ def test_report_puts_the_deciding_figure_first_in_the_broken_assumptions_evidenc
     run, _, page = planted
     verdict = next(v for v in run.verdicts if v.key == "angle_only")
     decided = verdict.decided_by
-    article = page[page.index(f'<article class="assumption" id="{anchor("angle_only")}"'):]
+    article = page[page.index(f'<div class="fold-body" id="{anchor("angle_only")}"'):]
     article = article[:article.index("</article>")]
     first_alt = re.search(r'<img src="[^"]*" alt="([^"]*)"', article).group(1)
     expected = {"relaxation": "Posterior of", "ppc": "Targeted statistic"}[decided.kind]

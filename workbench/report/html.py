@@ -234,8 +234,10 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
     verdicts = []
     for v in run.verdicts:
         worst = max((j.level for _, j in v.evidence), default=0)
-        lead = wording.readable(next((f"{f.detail} {j.sentence}" for f, j in v.evidence
-                                      if j.level == worst), ""))
+        # An assumption that holds is summed up by its judgement alone, so the
+        # diagnosis table fits the first screen; the numbers stay in its evidence.
+        lead = wording.readable(next(((f"{f.detail} {j.sentence}" if worst else j.sentence or f.detail)
+                                      for f, j in v.evidence if j.level == worst), ""))
         figure_names = figure_order(v, figs)
         verdicts.append({
             "key": v.key, "anchor": anchor(v.key), "statement": v.statement, "verdict": v.verdict,
