@@ -395,3 +395,16 @@ def test_page_does_not_scroll_sideways_on_a_phone(companion_pages, visit, name):
     for widths in v.page.eval_on_selector_all("table.verdicts", "ts => ts.map(t => [t.scrollWidth, t.clientWidth])"):
         assert widths[0] <= widths[1]
     v.page.screenshot(path=artifact(f"{name}-phone.png"), full_page=True)
+
+
+def test_waived_gate_badge_is_drawn_apart_from_doubtful_in_the_audit(companion_pages, visit):
+    v = visit(companion_pages["audit"])
+    borders = v.page.evaluate(
+        """states => states.map(s => {
+            const b = document.createElement('span');
+            b.className = 'badge ' + s; b.textContent = 'x';
+            document.body.appendChild(b);
+            const st = getComputedStyle(b);
+            return st.borderTopStyle + ' ' + st.borderTopWidth;
+        })""", ["waived", "doubtful", "holds", "broken", "unchecked"])
+    assert borders[0] not in borders[1:], borders
