@@ -80,3 +80,10 @@ def test_fit_section_shows_each_observed_variables_loo_pit_with_its_reading(run)
     assert 'alt="successes: LOO-PIT ECDF minus the uniform CDF' in fit
     reading = loo_pit_reading(run.extras["loo_pit"]["y"], "successes")[1]
     assert f'<p class="reading" data-figure="loo-pit-y"><strong>LOO-PIT reading.</strong> {reading}</p>' in fit
+
+
+def test_an_outcome_without_one_value_per_loo_term_is_named_as_skipped(run):
+    # The throwing table has one count per row: nothing is skipped there.
+    assert run.extras["loo_pit_skipped"] == []
+    page = render(run, writers.summary(run))
+    assert "No LOO-PIT for" not in page

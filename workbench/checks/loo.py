@@ -175,4 +175,6 @@ def pit_ecdf(pit: np.ndarray, level: float) -> dict:
 def loo_pit(context: Context) -> list[Finding]:
     """LOO-PIT of every observed variable, kept for the report's fit section."""
     context.extras["loo_pit"] = loo_pit_numbers(context.fit)
+    observed = context.fit.idata["observed_data"].data_vars if "observed_data" in context.fit.idata.children else {}
+    context.extras["loo_pit_skipped"] = [n for n in observed if n not in context.extras["loo_pit"]]
     return []

@@ -266,6 +266,7 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
         has_truth=bool(truth),
         caution=CAUTION if recipe is not None and recipe.people_decisions else "",
         fit_figs=fit_figs,
+        pit_skipped=[outcomes.get(n, n) for n in run.extras.get("loo_pit_skipped", [])],
         sampler_figs=sampler_figs,
         loo_figs=loo_figs,
         calibration_figs=calibration_figs,
