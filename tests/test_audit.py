@@ -7,8 +7,8 @@ import json
 import pytest
 
 import shared_runs
-from workbench.audit import (FAIL, MAX_RHAT, MIN_ESS_BULK, NOT_RUN, PASS, WAIVED, evaluate,
-                             resolve_gates, resolve_waivers)
+from workbench.audit import (FAIL, IMPLEMENTATION_CHECKED, MAX_RHAT, MIN_ESS_BULK, NOT_RUN, PASS,
+                             STATUS_BADGES, WAIVED, evaluate, resolve_gates, resolve_waivers)
 from workbench.cli import main
 from workbench.errors import OptionError
 
@@ -40,6 +40,14 @@ def test_healthy_model_passes_every_gate_and_exits_0(healthy):
                  "max_pareto_k_share"):
         assert gates[name]["status"] == PASS, gates[name]["evidence"]
     assert gates["min_calibration_p"]["status"] == NOT_RUN  # the plan asks for no calibration
+    assert gates[IMPLEMENTATION_CHECKED]["status"] == WAIVED  # lifted by the plan's written reason
+
+
+def test_healthy_plan_waives_the_implementation_gate_with_its_reason_in_the_report(healthy):
+    _, doc, folder = healthy
+    gate = by_name(doc)[IMPLEMENTATION_CHECKED]
+    assert gate["value"] == "unchecked" and "no simulation-based calibration ran" in gate["evidence"]
+    assert gate["waiver"] and gate["waiver"] in (folder / "audit.html").read_text()
 
 
 def test_gate_values_are_the_checks_own_numbers(healthy):
@@ -148,6 +156,48 @@ def test_a_waived_failure_reads_waived_and_keeps_its_evidence():
     assert out["max_rhat"]["status"] == WAIVED
     assert "largest R-hat 1.03" in out["max_rhat"]["evidence"]
     assert out["verdicts.curve_shape"]["status"] == FAIL  # broken is not acceptable by default
+
+
+def with_implementation(verdict, **extra):
+    doc = summary()
+    doc["assumptions"].append({"key": "implementation", "verdict": verdict, "evidence": []})
+    doc.update(extra)
+    return doc
+
+
+def test_implementation_gate_fails_by_default_when_no_calibration_ran():
+    out = {g["name"]: g for g in evaluate(with_implementation("unchecked"), None, resolve_gates({}, KEYS), {})}
+    assert out[IMPLEMENTATION_CHECKED]["status"] == FAIL
+    assert "set sbc > 0" in out[IMPLEMENTATION_CHECKED]["evidence"]
+
+
+def test_implementation_gate_passes_once_calibration_judged_the_code():
+    doc = with_implementation("holds", calibration={"sims": 100, "completed": 100, "parameters": {}})
+    out = {g["name"]: g for g in evaluate(doc, None, resolve_gates({}, KEYS), {})}
+    assert out[IMPLEMENTATION_CHECKED]["status"] == PASS
+    assert "calibration over 100 replicates" in out[IMPLEMENTATION_CHECKED]["evidence"]
+
+
+def test_implementation_gate_is_lifted_by_a_written_waiver():
+    waivers = resolve_waivers({IMPLEMENTATION_CHECKED: "calibrated last week on this layout"},
+                              list(resolve_gates({}, KEYS)))
+    out = {g["name"]: g for g in evaluate(with_implementation("unchecked"), None, resolve_gates({}, KEYS), waivers)}
+    assert out[IMPLEMENTATION_CHECKED]["status"] == WAIVED
+    assert out[IMPLEMENTATION_CHECKED]["waiver"] == "calibrated last week on this layout"
+
+
+def test_implementation_gate_takes_only_true_or_false():
+    assert resolve_gates({IMPLEMENTATION_CHECKED: False}, KEYS)[IMPLEMENTATION_CHECKED] is False
+    with pytest.raises(OptionError, match="expected true or false"):
+        resolve_gates({IMPLEMENTATION_CHECKED: 1}, KEYS)
+
+
+def test_waived_has_its_own_shape_apart_from_every_verdict():
+    from workbench.report.html import BADGES
+
+    shape, css = STATUS_BADGES[WAIVED]
+    assert css == "waived" and shape not in {s for s, _ in BADGES.values()}
+    assert len({s for s, _ in STATUS_BADGES.values()}) == len(STATUS_BADGES)
 
 
 def test_pareto_k_gate_counts_rows_above_point_seven():

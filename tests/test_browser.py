@@ -25,7 +25,9 @@ CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-
                  "--disable-background-networking", "--disable-component-update", "--disable-sync"]
 ARTIFACTS = Path(__file__).resolve().parents[1] / "test-artifacts"
 PHONE = {"width": 375, "height": 812}
+NARROW_PHONE = {"width": 390, "height": 844}
 DESKTOP = {"width": 1280, "height": 900}
+FIRST_SCREEN = {"width": 1280, "height": 800}
 # A section printed on a new page starts within this distance of the page's
 # top edge (points): Chromium's default print margin plus a heading's margin.
 TOP_SLACK_PT = 72.0
@@ -124,8 +126,9 @@ def test_report_makes_no_network_request(run_folder, visit):
     assert all(url.startswith(("file://", "data:")) for url in v.requests), v.requests
 
 
-def test_every_figure_is_visible_with_a_size(run_folder, visit):
+def test_every_figure_is_visible_with_a_size_once_its_fold_is_open(run_folder, visit):
     v = visit(run_folder / "report.html")
+    v.page.evaluate("() => document.querySelectorAll('details').forEach(d => d.open = true)")
     images = v.page.locator("img")
     assert images.count() >= 4  # fit, PPC statistics, ranks, pairs, Pareto k
     for i in range(images.count()):
@@ -169,10 +172,67 @@ def test_each_assumption_links_to_its_evidence(run_folder, visit):
 
 def test_back_link_returns_to_the_diagnosis(run_folder, visit):
     v = visit(run_folder / "report.html")
-    v.page.locator("article.assumption a[href='#diagnosis']").last.click()
+    last = v.page.locator("article.assumption > details").last
+    if last.get_attribute("open") is None:
+        last.locator("summary").click()  # a folded assumption opens from its heading
+    last.locator("a[href='#diagnosis']").click()
     v.page.wait_for_function("() => location.hash === '#diagnosis'")
     top = v.page.eval_on_selector("#diagnosis", "e => e.getBoundingClientRect().top")
     assert abs(top) <= 1
+
+
+# --- folds ---------------------------------------------------------------------------
+
+
+def test_first_screen_holds_the_result_line_and_the_diagnosis_table(run_folder, visit):
+    v = visit(run_folder / "report.html", FIRST_SCREEN)
+    bottoms = v.page.evaluate("""() => ['#headline', 'table.verdicts'].map(
+        s => document.querySelector(s).getBoundingClientRect().bottom)""")
+    assert all(0 < b <= FIRST_SCREEN["height"] for b in bottoms), bottoms
+    v.page.screenshot(path=artifact("report-first-screen.png"), full_page=False)
+
+
+def test_evidence_folds_are_open_for_flagged_assumptions_and_closed_for_holds(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    folds = v.page.eval_on_selector_all(
+        "article.assumption > details", "ds => ds.map(d => [d.dataset.verdict, d.open])")
+    assert {verdict for verdict, _ in folds} >= {"holds"}
+    for verdict, is_open in folds:
+        assert is_open == (verdict in ("broken", "doubtful")), (verdict, is_open)
+
+
+def test_sections_after_the_estimates_are_folded(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    for section in ("fit", "sampler", "loo", "manifest"):
+        assert v.page.eval_on_selector(f"#{section} > details.fold", "d => d.open") is False, section
+        assert v.page.locator(f"#{section} > details > summary h2").is_visible()
+
+
+def test_link_to_a_folded_assumption_opens_its_evidence(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    held = v.page.eval_on_selector_all(
+        "article.assumption > details[data-verdict='holds'] .fold-body", "bs => bs.map(b => b.id)")
+    v.page.locator(f"table.verdicts a[href='#{held[0]}']").click()
+    v.page.wait_for_function("h => location.hash === h", arg="#" + held[0])
+    assert v.page.locator(f"[id='{held[0]}'] table.evidence").is_visible()
+
+
+def test_print_opens_every_fold(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    v.page.emulate_media(media="print")
+    hidden = v.page.eval_on_selector_all(
+        "details.fold:not([open]) > :not(summary)",
+        "es => es.filter(e => !e.checkVisibility()).length")
+    assert v.page.locator("details.fold:not([open])").count() > 0
+    assert hidden == 0
+
+
+def test_report_does_not_scroll_sideways_at_390_px(run_folder, visit):
+    v = visit(run_folder / "report.html", NARROW_PHONE)
+    v.page.evaluate("() => document.querySelectorAll('details').forEach(d => d.open = true)")
+    page_width, inner = v.page.evaluate(
+        "() => [document.scrollingElement.scrollWidth, window.innerWidth]")
+    assert page_width <= inner
 
 
 # --- small screens, greyscale and print -------------------------------------------------
@@ -335,3 +395,16 @@ def test_page_does_not_scroll_sideways_on_a_phone(companion_pages, visit, name):
     for widths in v.page.eval_on_selector_all("table.verdicts", "ts => ts.map(t => [t.scrollWidth, t.clientWidth])"):
         assert widths[0] <= widths[1]
     v.page.screenshot(path=artifact(f"{name}-phone.png"), full_page=True)
+
+
+def test_waived_gate_badge_is_drawn_apart_from_doubtful_in_the_audit(companion_pages, visit):
+    v = visit(companion_pages["audit"])
+    borders = v.page.evaluate(
+        """states => states.map(s => {
+            const b = document.createElement('span');
+            b.className = 'badge ' + s; b.textContent = 'x';
+            document.body.appendChild(b);
+            const st = getComputedStyle(b);
+            return st.borderTopStyle + ' ' + st.borderTopWidth;
+        })""", ["waived", "doubtful", "holds", "broken", "unchecked"])
+    assert borders[0] not in borders[1:], borders

@@ -301,6 +301,8 @@ def test_hostile_reports_run_no_script_and_do_not_scroll_sideways_on_a_phone(mod
         v.page.wait_for_load_state("load")
         assert v.errors == []  # an alert() from the input would be recorded here
         assert v.page.evaluate("() => document.scripts.length") == 0
+        # Folded evidence holds user text too: read and measure the page with every fold open.
+        v.page.evaluate("() => document.querySelectorAll('details').forEach(d => d.open = true)")
         assert shown in v.page.inner_text("body")
         page_width, inner = v.page.evaluate("() => [document.scrollingElement.scrollWidth, innerWidth]")
         assert page_width <= inner

@@ -8,18 +8,20 @@ passes when every gate passes or is waived.
 
 Gates and their defaults (each default cites its source):
 
-=====================  =========  ==============================================
-gate                   default    passes when
-=====================  =========  ==============================================
-max_rhat               1.01       largest rank-normalised split R-hat <= value
-min_ess_bulk           400        smallest bulk ESS >= value
-min_ess_tail           400        smallest tail ESS >= value
-max_divergences        0          divergent transitions <= value
-min_bfmi               0.3        smallest E-BFMI over chains >= value
-max_pareto_k_share     0          share of rows with Pareto k > 0.7 <= value
-min_calibration_p      0.01       every SBC uniformity p-value >= value (sbc > 0)
-verdicts.KEY           not broken assumption KEY's verdict is one of the list
-=====================  =========  ==============================================
+=======================  =========  ==============================================
+gate                     default    passes when
+=======================  =========  ==============================================
+max_rhat                 1.01       largest rank-normalised split R-hat <= value
+min_ess_bulk             400        smallest bulk ESS >= value
+min_ess_tail             400        smallest tail ESS >= value
+max_divergences          0          divergent transitions <= value
+min_bfmi                 0.3        smallest E-BFMI over chains >= value
+max_pareto_k_share       0          share of rows with Pareto k > 0.7 <= value
+min_calibration_p        0.01       every SBC uniformity p-value >= value (sbc > 0)
+implementation_checked   true       the implementation assumption is not unchecked
+                                    (simulation-based calibration ran)
+verdicts.KEY             not broken assumption KEY's verdict is one of the list
+=======================  =========  ==============================================
 
 References
 ----------
@@ -74,13 +76,19 @@ MAX_PARETO_K_SHARE = 0.0
 # plan asks for sbc > 0). With about five quantities tested, 1% each keeps
 # the chance of a false alarm near 5% overall (Bonferroni); common practice.
 MIN_CALIBRATION_P = 0.01
+# A model signed off should have had its code checked against its story:
+# simulation-based calibration (Talts et al. 2018; Modrák et al. 2023) is the
+# only check of the implementation, so by default it must have run. A plan
+# that cannot afford it lifts the gate with a written waiver.
+IMPLEMENTATION_CHECKED = "implementation_checked"
 # Verdicts acceptable for every assumption unless [gates.verdicts] says otherwise.
 ACCEPTABLE_VERDICTS = ("holds", "doubtful", "unchecked")
 VERDICTS = ("holds", "doubtful", "broken", "unchecked")
 
 PASS, FAIL, WAIVED, NOT_RUN = "pass", "fail", "waived", "not run"
 # Badge of each status in the report: the shapes of the verdict badges.
-STATUS_BADGES = {PASS: ("✓", "holds"), FAIL: ("✕", "broken"), WAIVED: ("△", "doubtful"),
+# A waived gate has a shape of its own: lifted by a reason, not in doubt.
+STATUS_BADGES = {PASS: ("✓", "holds"), FAIL: ("✕", "broken"), WAIVED: ("◇", "waived"),
                  NOT_RUN: ("○", "unchecked")}
 
 
@@ -177,13 +185,18 @@ def resolve_gates(given: dict, assumptions: list[str]) -> dict:
     Returns ``{gate name: threshold}`` for numeric gates and
     ``{"verdicts.KEY": tuple of verdicts}`` for each assumption.
     """
-    known = [g.name for g in GATES] + [VERDICT_PREFIX + k for k in assumptions]
+    known = [g.name for g in GATES] + [IMPLEMENTATION_CHECKED] + [VERDICT_PREFIX + k for k in assumptions]
     gates: dict = {g.name: g.default for g in GATES}
+    gates[IMPLEMENTATION_CHECKED] = True
     gates.update({VERDICT_PREFIX + k: ACCEPTABLE_VERDICTS for k in assumptions})
     for name, value in _flatten(given).items():
         if name not in known:
             raise _unknown("gates", name, known)
-        if name.startswith(VERDICT_PREFIX):
+        if name == IMPLEMENTATION_CHECKED:
+            if not isinstance(value, bool):
+                raise OptionError(f"plan [gates] {name}: expected true or false; found {value!r}")
+            gates[name] = value
+        elif name.startswith(VERDICT_PREFIX):
             words = [value] if isinstance(value, str) else value
             if not isinstance(words, list) or not words or any(w not in VERDICTS for w in words):
                 raise OptionError(f"plan [gates] {name}: expected a list of verdicts from "
@@ -276,6 +289,19 @@ def evaluate(summary: dict, pareto_k: list[float] | None, gates: dict, waivers: 
         add(gate.name, PASS if ok else FAIL, limit, value, evidence, gate.source)
 
     verdicts = {a["key"]: a for a in summary.get("assumptions", [])}
+    source = "Talts et al. 2018; Modrák et al. 2023"
+    if not gates.get(IMPLEMENTATION_CHECKED, True):
+        add(IMPLEMENTATION_CHECKED, NOT_RUN, False, None, "turned off by the plan's [gates]", source)
+    else:
+        verdict = (verdicts.get("implementation") or {}).get("verdict", "unchecked")
+        if verdict == "unchecked":
+            evidence = ("implementation: unchecked; no simulation-based calibration ran "
+                        "(set sbc > 0 in the plan)")
+        else:
+            sims = (calibration or {}).get("completed", (calibration or {}).get("sims"))
+            evidence = f"implementation: {verdict}" + (f"; calibration over {sims} replicates" if sims else "")
+        add(IMPLEMENTATION_CHECKED, FAIL if verdict == "unchecked" else PASS, True, verdict, evidence, source)
+
     for name, allowed in gates.items():
         if not name.startswith(VERDICT_PREFIX):
             continue

@@ -45,8 +45,28 @@ class Verdict:
     # The key of the assumption whose failure explains this one's alarm ('' when none).
     symptom_of: str = ""
 
+    @property
+    def decided_by(self) -> Finding | None:
+        """The evidence that set the verdict: at the worst level, the strongest.
+
+        None when every piece of evidence says the assumption holds.
+        """
+        worst = max((j.level for _, j in self.evidence), default=0)
+        if worst == 0:
+            return None
+        ranked = [(j.strength, -i, f) for i, (f, j) in enumerate(self.evidence) if j.level == worst]
+        return max(ranked, key=lambda t: t[:2])[2]
+
+    @property
+    def contributors(self) -> list[dict]:
+        """Rows carrying the relaxed model's gain, for a broken or doubtful assumption."""
+        if self.verdict not in (BROKEN, DOUBTFUL):
+            return []
+        found = [f.numbers.get("contributors") or [] for f, _ in self.evidence if f.kind == "relaxation"]
+        return max(found, key=len, default=[])
+
     def to_dict(self) -> dict:
-        return {
+        doc = {
             "key": self.key,
             "statement": self.statement,
             "verdict": self.verdict,
@@ -61,6 +81,9 @@ class Verdict:
             ],
             "advice": self.advice,
         }
+        if self.contributors:
+            doc["contributors"] = [dict(c) for c in self.contributors]
+        return doc
 
 
 def _num(x):

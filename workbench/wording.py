@@ -76,3 +76,14 @@ _SCIENTIFIC = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?e[+-]?\d+(?![\w.])")
 def readable(text: str) -> str:
     """``text`` with numbers in e-notation spelled as :func:`number` writes them."""
     return _SCIENTIFIC.sub(lambda m: number(float(m.group())), text)
+
+
+def gain_carriers(contributors: list[dict]) -> str:
+    """``distance 1 (52%) and distance 1.5 (31%) carry 83% of the gain.``"""
+    if not contributors:
+        return ""
+    parts = [f"{c['label']} ({c['share']:.0%})" for c in contributors]
+    named = parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + f" and {parts[-1]}"
+    total = sum(c["share"] for c in contributors)
+    verb = "carries" if len(parts) == 1 else "carry"
+    return f"{named} {verb} {total:.0%} of the expanded model's gain in elpd."

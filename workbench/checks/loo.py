@@ -33,8 +33,8 @@ def pareto_k_threshold(draws: int) -> float:
     return float(min(1.0 - 1.0 / np.log10(draws), 0.7))
 
 
-def loo_of(fit):
-    """ArviZ PSIS-LOO of a fit, pointwise.
+def psis_weights(idata, name: str):
+    """ArviZ's PSIS log weights and Pareto k of one log-likelihood variable.
 
     A row whose log-likelihood is the same in every draw (a probability
     pinned at its bound) gets uniform weights and k = 0: leaving it out does
@@ -42,13 +42,10 @@ def loo_of(fit):
     probability pinned in some draws only) are broken by noise far below any
     elpd resolution, because PSIS cannot fit a tail made of equal values.
     """
-    import arviz as az
     import xarray as xr
     from arviz_stats.loo.loo_helper import _get_r_eff
 
-    idata = fit.idata
-    names = list(idata["log_likelihood"].data_vars)
-    ll = idata["log_likelihood"][names[0]]
+    ll = idata["log_likelihood"][name]
     sample_dims = ["chain", "draw"]
     n = ll.sizes["chain"] * ll.sizes["draw"]
     constant = (ll.max(sample_dims) - ll.min(sample_dims)) == 0
@@ -57,9 +54,20 @@ def loo_of(fit):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         log_weights, k = (ll + jitter).azstats.psislw(r_eff=_get_r_eff(idata, n), dim=sample_dims)
-        log_weights = xr.where(constant, -np.log(n), log_weights).transpose(*ll.dims)
-        k = xr.where(constant, 0.0, k)
-        return az.loo(idata, pointwise=True, var_name=names[0], log_weights=log_weights, pareto_k=k)
+    log_weights = xr.where(constant, -np.log(n), log_weights).transpose(*ll.dims)
+    return log_weights, xr.where(constant, 0.0, k)
+
+
+def loo_of(fit):
+    """ArviZ PSIS-LOO of a fit, pointwise, with the weights of :func:`psis_weights`."""
+    import arviz as az
+
+    idata = fit.idata
+    name = list(idata["log_likelihood"].data_vars)[0]
+    log_weights, k = psis_weights(idata, name)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return az.loo(idata, pointwise=True, var_name=name, log_weights=log_weights, pareto_k=k)
 
 
 def loo_numbers(fit) -> dict:
@@ -93,3 +101,80 @@ def psis_loo(context: Context) -> list[Finding]:
         Finding("loo", "loo", "psis_loo", numbers["elpd"], detail=detail,
                 numbers={k: v for k, v in numbers.items() if k != "pareto_k"}, figure="pareto-k")
     ]
+
+
+# LOO-PIT ECDFs are drawn with ArviZ's default envelope (its 99% simultaneous
+# band); the band's simulation is seeded so a report is reproducible.
+LOO_PIT_SIMULATIONS = 1000
+LOO_PIT_SEED = 214
+
+
+def loo_pit_numbers(fit) -> dict[str, dict]:
+    """LOO-PIT of each observed variable, with its ECDF and simultaneous band.
+
+    The values are ArviZ's ``loo_pit`` on the weights of :func:`psis_weights`
+    (randomised within ties for discrete
+    outcomes, as ArviZ does); the band is ArviZ's ``ecdf_pit`` at its default
+    envelope probability. Per variable: ``pit`` (one value per observation),
+    ``points``, ``ecdf``, ``lower``, ``upper``, ``level``, the ``mean`` and
+    ``variance`` of the values (1/2 and 1/12 for a calibrated model) and
+    ``outside`` (the ECDF leaves the band somewhere).
+
+    References
+    ----------
+    Säilynoja, T., Bürkner, P.-C. and Vehtari, A. (2022). Graphical test for
+    discrete uniformity and its applications in goodness-of-fit evaluation
+    and multiple sample comparison. Statistics and Computing 32(32).
+    Gabry, J., Simpson, D., Vehtari, A., Betancourt, M. and Gelman, A.
+    (2019). Visualization in Bayesian workflow. JRSS A 182(2), 389-402.
+    """
+    from arviz_base import rcParams
+    from arviz_stats import loo_pit
+
+    idata = fit.idata
+    if "posterior_predictive" not in idata.children or "log_likelihood" not in idata.children:
+        return {}
+    # A multivariate outcome (a multinomial row) has one log-likelihood term
+    # per row but several values: it has no scalar PIT, so it is left out.
+    names = [n for n in idata["log_likelihood"].data_vars
+             if n in idata["posterior_predictive"].data_vars and n in idata["observed_data"].data_vars
+             and idata["observed_data"][n].shape == idata["log_likelihood"][n].shape[2:]]
+    if not names:
+        return {}
+    import xarray as xr
+
+    level = float(rcParams["stats.envelope_prob"])
+    weights = {name: psis_weights(idata, name) for name in names}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        values = loo_pit(idata, var_names=names,
+                         log_weights=xr.Dataset({n: w for n, (w, _) in weights.items()}),
+                         pareto_k=xr.Dataset({n: k for n, (_, k) in weights.items()}))
+    out = {}
+    for name in names:
+        pit = np.asarray(values[name], dtype=float).ravel()
+        pit = pit[np.isfinite(pit)]
+        if pit.size >= 2:
+            out[name] = pit_ecdf(pit, level)
+    return out
+
+
+def pit_ecdf(pit: np.ndarray, level: float) -> dict:
+    """PIT values with ArviZ's ECDF and simultaneous band at ``level`` (see :func:`loo_pit_numbers`)."""
+    from arviz_stats.ecdf_utils import ecdf_pit
+
+    pit = np.asarray(pit, dtype=float)
+    points, ecdf, lower, upper = ecdf_pit(pit, level, LOO_PIT_SIMULATIONS,
+                                          rng=np.random.default_rng(LOO_PIT_SEED))
+    return {"pit": pit, "points": points, "ecdf": ecdf, "lower": lower, "upper": upper,
+            "level": level, "mean": float(pit.mean()), "variance": float(pit.var()),
+            "outside": bool(np.any(ecdf < lower) or np.any(ecdf > upper))}
+
+
+@check
+def loo_pit(context: Context) -> list[Finding]:
+    """LOO-PIT of every observed variable, kept for the report's fit section."""
+    context.extras["loo_pit"] = loo_pit_numbers(context.fit)
+    observed = context.fit.idata["observed_data"].data_vars if "observed_data" in context.fit.idata.children else {}
+    context.extras["loo_pit_skipped"] = [n for n in observed if n not in context.extras["loo_pit"]]
+    return []

@@ -23,21 +23,75 @@ from workbench.checks.loo import loo_of
 from workbench.checks.predictive import discrepancies
 from workbench.findings import COMPUTATION, Finding
 from workbench.statistics import predictive_p_value
-from workbench.wording import p_equals
+from workbench.wording import number, p_equals
+
+# The rows named as carrying a relaxation's gain: the largest positive
+# contributions, at most this many, stopping once they hold this share of the
+# total positive gain (a reader follows up a handful of rows, not a list).
+TOP_CONTRIBUTORS = 5
+CONTRIBUTOR_SHARE = 0.8
 
 
-def elpd_difference(expanded, original) -> tuple[float, float]:
-    """elpd(expanded) - elpd(original) and its standard error (paired rows)."""
+def pointwise_gain(expanded, original) -> np.ndarray:
+    """Pointwise elpd of the expanded fit minus the original's (PSIS-LOO, paired rows)."""
     a, b = loo_of(expanded), loo_of(original)
-    diff = np.asarray(a.elpd_i).ravel() - np.asarray(b.elpd_i).ravel()
-    return float(diff.sum()), float(np.sqrt(diff.size * np.var(diff)))
+    return np.asarray(a.elpd_i, dtype=float).ravel() - np.asarray(b.elpd_i, dtype=float).ravel()
 
 
-def relaxation_finding(assumption, relaxation, expanded, original) -> Finding:
+def term_labels(design, data, n_terms: int) -> list[str]:
+    """A label for each pointwise LOO term in the table's words.
+
+    One term per table row: the row's covariate (``distance 3``), with its
+    label columns when they have several levels (``cohort c02, age 4``). One
+    term per level of a label column: that level (``cohort c02``). Otherwise
+    the term's number from 1 (``row 7``).
+    """
+    recipe = getattr(design, "recipe", None)
+    covariate = getattr(recipe, "covariate", None)
+    columns = getattr(data, "columns", {}) or {}
+    labels = getattr(data, "labels", {}) or {}
+    for name, levels in labels.items():
+        if len(levels) == n_terms and len(levels) > 1 and name in columns \
+                and np.asarray(columns[name]).size != n_terms:
+            return [f"{name} {level}" for level in levels]
+    if covariate and covariate in columns and np.asarray(columns[covariate]).size == n_terms:
+        values = np.asarray(columns[covariate], dtype=float)
+        words = [f"{covariate} {number(v)}" for v in values]
+        for name, levels in labels.items():
+            codes = np.asarray(columns.get(name, []))
+            if len(levels) > 1 and codes.size == n_terms:
+                words = [f"{name} {levels[int(c)]}, {w}" for c, w in zip(codes, words)]
+        return words
+    return [f"row {i + 1}" for i in range(n_terms)]
+
+
+def contributors(gain: np.ndarray, labels: list[str]) -> list[dict]:
+    """The terms that carry most of the positive gain: ``[{row, label, share}]``.
+
+    ``row`` numbers the pointwise term from 0 (as ``loo.bad_pareto_k`` does);
+    ``share`` is its part of the sum of the positive contributions.
+    """
+    gain = np.asarray(gain, dtype=float)
+    positive = float(gain[gain > 0].sum())
+    if positive <= 0:
+        return []
+    out, held = [], 0.0
+    for i in np.argsort(-gain, kind="stable")[:TOP_CONTRIBUTORS]:
+        if gain[i] <= 0 or held >= CONTRIBUTOR_SHARE:
+            break
+        share = float(gain[i] / positive)
+        out.append({"row": int(i), "label": labels[i], "share": share})
+        held += share
+    return out
+
+
+def relaxation_finding(assumption, relaxation, expanded, original, labels=None) -> Finding:
     draws = expanded.draws([relaxation.parameter])[relaxation.parameter].ravel()
     beyond = float(np.mean(np.abs(draws - relaxation.null) > relaxation.negligible))
     lo, mid, hi = np.percentile(draws, [5, 50, 95])
-    diff, se = elpd_difference(expanded, original)
+    gain = pointwise_gain(expanded, original)
+    diff, se = float(gain.sum()), float(np.sqrt(gain.size * np.var(gain)))
+    labels = labels or [f"row {i + 1}" for i in range(gain.size)]
     return Finding(
         assumption=assumption.key,
         kind="relaxation",
@@ -57,6 +111,7 @@ def relaxation_finding(assumption, relaxation, expanded, original) -> Finding:
             "interval": [float(lo), float(hi)],
             "elpd_diff": diff,
             "elpd_se": se,
+            "contributors": contributors(gain, labels),
         },
         figure=f"relaxation-{assumption.key}",
     )
@@ -65,12 +120,20 @@ def relaxation_finding(assumption, relaxation, expanded, original) -> Finding:
 @check
 def relaxations(context: Context) -> list[Finding]:
     findings = []
+    labels = None
     for assumption in context.design.assumptions:
         relaxation = assumption.relaxation
+        # Without a relaxed fit there is no pointwise gain to split into rows,
+        # even where the targeted statistic is a sum over rows: such an
+        # assumption names no contributors.
         if relaxation is None or relaxation.parameter not in context.relaxed:
             continue
+        if labels is None:
+            n_terms = np.asarray(loo_of(context.fit).elpd_i).size
+            labels = term_labels(context.design, context.data, n_terms)
         findings.append(
-            relaxation_finding(assumption, relaxation, context.relaxed[relaxation.parameter], context.fit)
+            relaxation_finding(assumption, relaxation, context.relaxed[relaxation.parameter],
+                               context.fit, labels)
         )
     return findings
 

@@ -144,6 +144,16 @@ def figures(run) -> dict[str, dict]:
                 x, y, prior_predictive.get(name), predictive.get(name), covariate or "row", name)
             out[f"fit-{name}"] = {"uri": plots.to_data_uri(fig),
                                   "caption": f"{name}: observed against prior and posterior predictive."}
+    from workbench.rules.model_fit import loo_pit_reading
+
+    words = outcome_words(run.design)
+    for name, numbers in (run.extras.get("loo_pit") or {}).items():
+        shown = words.get(name, name)
+        out[f"loo-pit-{name}"] = {
+            "uri": plots.to_data_uri(plots.loo_pit(numbers, shown)),
+            "caption": f"{shown}: LOO-PIT ECDF minus the uniform CDF, with its "
+                       f"{numbers['level']:.0%} simultaneous band.",
+            "reading": loo_pit_reading(numbers, shown)[1]}
     for key, (stat_name, observed, replicated, p) in run.extras.get("ppc", {}).items():
         out[f"ppc-{key}"] = {"uri": plots.to_data_uri(plots.statistic_check(observed, replicated, stat_name, p)),
                              "caption": f"Targeted statistic '{stat_name}': observed against replicated data."}
@@ -186,6 +196,20 @@ def figures(run) -> dict[str, dict]:
     return out
 
 
+def figure_order(verdict, available) -> list[str]:
+    """Names of an assumption's figures, the one of the deciding evidence first.
+
+    When the relaxed model's parameter decided a verdict its posterior leads;
+    when the targeted statistic decided, its predictive histogram does. The
+    rest follow in the order of the evidence.
+    """
+    names = [f.figure for f, _ in verdict.evidence if f.figure and f.figure in available]
+    decided = verdict.decided_by
+    if decided is not None and decided.figure in names:
+        names.insert(0, decided.figure)
+    return list(dict.fromkeys(names))
+
+
 def estimate_rows(run, summary: dict, truth=None) -> list[dict]:
     """The parameter table: each estimate with its true value when ``truth`` names it."""
     from workbench.estimates import beside_truth
@@ -210,9 +234,11 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
     verdicts = []
     for v in run.verdicts:
         worst = max((j.level for _, j in v.evidence), default=0)
-        lead = wording.readable(next((f"{f.detail} {j.sentence}" for f, j in v.evidence
-                                      if j.level == worst), ""))
-        figure_names = [f.figure for f, _ in v.evidence if f.figure and f.figure in figs]
+        # An assumption that holds is summed up by its judgement alone, so the
+        # diagnosis table fits the first screen; the numbers stay in its evidence.
+        lead = wording.readable(next(((f"{f.detail} {j.sentence}" if worst else j.sentence or f.detail)
+                                      for f, j in v.evidence if j.level == worst), ""))
+        figure_names = figure_order(v, figs)
         verdicts.append({
             "key": v.key, "anchor": anchor(v.key), "statement": v.statement, "verdict": v.verdict,
             "lead": lead.strip(), "advice": wording.readable(v.advice),
@@ -220,10 +246,11 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
                           "detail": wording.readable(f.detail),
                           "judgement": wording.readable(j.sentence), "level": j.level}
                          for f, j in v.evidence],
-            "figures": [dict(figs[n], name=n) for n in dict.fromkeys(figure_names)],
+            "figures": [dict(figs[n], name=n) for n in figure_names],
+            "carriers": wording.gain_carriers(v.contributors),
         })
     used = {f["name"] for v in verdicts for f in v["figures"]}
-    fit_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("fit")]
+    fit_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith(("fit", "loo-pit-"))]
     sampler_figs = [dict(figs[k], name=k) for k in ("ranks", "pairs") if k in figs]
     loo_figs = [dict(figs[k], name=k) for k in ("pareto-k",) if k in figs]
     calibration_figs = [dict(v, name=k) for k, v in figs.items() if k.startswith("calibration-") and k not in used]
@@ -239,6 +266,7 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
         has_truth=bool(truth),
         caution=CAUTION if recipe is not None and recipe.people_decisions else "",
         fit_figs=fit_figs,
+        pit_skipped=[outcomes.get(n, n) for n in run.extras.get("loo_pit_skipped", [])],
         sampler_figs=sampler_figs,
         loo_figs=loo_figs,
         calibration_figs=calibration_figs,

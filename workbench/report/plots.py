@@ -188,3 +188,26 @@ def pareto_k(k: np.ndarray, threshold: float):
     ax.set_ylabel("Pareto k")
     ax.legend(frameon=False, fontsize=8)
     return fig
+
+
+def loo_pit(numbers: dict, name: str):
+    """LOO-PIT ECDF minus the uniform CDF, with its simultaneous band.
+
+    ``numbers`` are those of :func:`workbench.checks.loo.loo_pit_numbers`
+    for one observed variable.
+    """
+    x = np.asarray(numbers["points"])
+    ecdf, lower, upper = (np.asarray(numbers[k]) for k in ("ecdf", "lower", "upper"))
+    fig, ax = plt.subplots(figsize=(5.2, 3.0))
+    ax.fill_between(x, lower - x, upper - x, step="post", color=FIT, alpha=0.18, linewidth=0,
+                    label=f"{numbers['level']:.0%} simultaneous band")
+    ax.axhline(0.0, color=FAINT, linewidth=0.8)
+    ax.step(x, ecdf - x, where="post", color=ALERT if numbers["outside"] else INK, linewidth=1.4,
+            label="LOO-PIT ECDF − uniform")
+    ax.set_xlim(0, 1)
+    ax.set_xlabel(f"LOO-PIT of {name}", fontsize=8)
+    ax.set_ylabel("ECDF difference", fontsize=8)
+    ax.tick_params(labelsize=7)
+    ax.legend(fontsize=7, frameon=False, loc="lower left")
+    fig.tight_layout()
+    return fig
