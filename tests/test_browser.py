@@ -257,14 +257,7 @@ def test_verdict_states_differ_in_words_and_shapes_without_colour(run_folder, vi
         assert text == f"{BADGES[cls][0]} {BADGES[cls][1]}"
     # The stylesheet draws each of the four states with its own border,
     # so even a badge whose word is cut off stays distinguishable in grey.
-    borders = v.page.evaluate(
-        """states => states.map(s => {
-            const b = document.createElement('span');
-            b.className = 'badge ' + s; b.textContent = 'x';
-            document.body.appendChild(b);
-            const st = getComputedStyle(b);
-            return st.borderTopStyle + ' ' + st.borderTopWidth;
-        })""", list(BADGES))
+    borders = badge_borders(v.page, list(BADGES))
     assert len(set(borders)) == len(BADGES), dict(zip(BADGES, borders))
     v.page.locator("#diagnosis").screenshot(path=artifact("report-greyscale.png"))
 
@@ -397,14 +390,19 @@ def test_page_does_not_scroll_sideways_on_a_phone(companion_pages, visit, name):
     v.page.screenshot(path=artifact(f"{name}-phone.png"), full_page=True)
 
 
-def test_waived_gate_badge_is_drawn_apart_from_doubtful_in_the_audit(companion_pages, visit):
-    v = visit(companion_pages["audit"])
-    borders = v.page.evaluate(
+def badge_borders(page, states: list[str]) -> list[str]:
+    """The border style and width the page's stylesheet gives a badge of each state."""
+    return page.evaluate(
         """states => states.map(s => {
             const b = document.createElement('span');
             b.className = 'badge ' + s; b.textContent = 'x';
             document.body.appendChild(b);
             const st = getComputedStyle(b);
             return st.borderTopStyle + ' ' + st.borderTopWidth;
-        })""", ["waived", "doubtful", "holds", "broken", "unchecked"])
+        })""", states)
+
+
+def test_waived_gate_badge_is_drawn_apart_from_doubtful_in_the_audit(companion_pages, visit):
+    v = visit(companion_pages["audit"])
+    borders = badge_borders(v.page, ["waived", "doubtful", "holds", "broken", "unchecked"])
     assert borders[0] not in borders[1:], borders

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+import shared_runs
 from recipes.threshold_geometry import RECIPE
 from workbench import harness, rates, registry
 from workbench.recipe import make_design
@@ -42,13 +43,8 @@ def test_planted_fault_is_named_and_nothing_else_is_broken(name, scenario, fast_
 
 
 @pytest.mark.slow
-def test_report_on_a_planted_fault_lists_the_planted_assumption_first(fast_settings):
-    design = make_design(RECIPE, {"clearance": "0.35"}, {})
-    demo = RECIPE.demo(np.random.default_rng(5))
-    base = design.validate(demo.table)
-    data = design.simulate(np.random.default_rng(6), base, {**demo.truth, "extra_failure": 0.05})
-    run = harness.run_check(design, data, harness.DataInfo("sim", "", data.rows), seed=2,
-                            settings=fast_settings, workers=1)
+def test_report_on_a_planted_fault_lists_the_planted_assumption_first():
+    run, _, _ = shared_runs.planted_extra_failure()  # extra failure 0.05 on the demo layout
     assert run.verdicts[0].key == "angle_only" and run.verdicts[0].verdict == "broken"
     assert "failure" in run.verdicts[0].advice
 
