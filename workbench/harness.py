@@ -100,7 +100,7 @@ def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=No
     fresh = design.build(data, relaxation)
     key = (design.key(), getattr(relaxation, "parameter", None), _layout(fresh))
     if key not in _COMPILED:
-        _COMPILED[key] = (fresh, engine.Sampler(fresh))
+        _COMPILED[key] = (fresh, engine.Sampler(fresh, settings=settings))
         return engine.fit(fresh, seed, settings, sampler=_COMPILED[key][1], **kwargs)
     model, sampler = _COMPILED[key]
     values = {v.name: v.get_value() for v in fresh.data_vars}
