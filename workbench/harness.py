@@ -9,9 +9,11 @@ from __future__ import annotations
 import os
 import platform
 import sys
+import threading
 import time
 import warnings
-from concurrent.futures import as_completed
+from collections import deque
+from concurrent.futures import Future, as_completed
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from importlib import metadata
@@ -133,9 +135,16 @@ def relaxation_workers(fits: int, settings: engine.Settings, main: engine.Fit | 
     return executor.fits_worth_helpers(fits, compile_seconds, main.seconds, settings.chains)
 
 
+def relaxation_names(design, data) -> list[str]:
+    """The relaxed models a check fits: declared, applying to the options, informed by the table."""
+    return list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
+                              if a.relaxation is not None and a.relaxation.applies_to(design.options)
+                              and not a.uninformed(data)))
+
+
 def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
                     say: Callable[[str], None], fitter=None, progress: bool = False,
-                    main: engine.Fit | None = None) -> dict[str, engine.Fit]:
+                    main: engine.Fit | None = None, helper=None) -> dict[str, engine.Fit]:
     """Fit every declared relaxation, in this process or in helper processes.
 
     ``workers=None`` chooses by :func:`relaxation_workers` from the base fit
@@ -181,6 +190,101 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     return {n: done[n] for n in names}
 
 
+class EarlyHelper:
+    """One helper process started before the base fit, sharing the relaxed models.
+
+    On the light compile path (:mod:`workbench.compiling`) this process
+    samples on one core; the helper imports on the other while the base
+    model fits, then both take relaxed models from one queue, this process
+    from the front and the helper from the back. Seeds belong to the models,
+    so the results do not depend on who fitted what.
+    """
+
+    def __init__(self):
+        self.pool = executor.process_pool(1)
+        with executor.user_script_hidden():
+            self.ready = self.pool.submit(executor.warm_up)
+
+    @staticmethod
+    def wanted(fits: int, workers: int | None, relax: bool) -> bool:
+        return (relax and workers is None and executor.cores() >= 2
+                and fits >= executor.EARLY_HELPER_FITS)
+
+    def pays(self, main: engine.Fit | None) -> bool:
+        # A base fit on nutpie's native wrappers already sampled on every
+        # core; a fit read from a cache says its relaxations are cached too.
+        sampler = getattr(main, "sampler", None)
+        return sampler is not None and getattr(sampler, "path", "") == "light"
+
+    def share(self, names: list[str], here: Callable, there: Callable, advance: Callable) -> dict:
+        queue = deque(names)
+        lock = threading.Lock()
+        done: dict[str, engine.Fit] = {}
+        failures: list[BaseException] = []
+        idle = threading.Event()
+
+        def give(started=None) -> None:
+            if started is not None and started.exception() is not None:
+                failures.append(started.exception())
+            with lock:
+                name = queue.pop() if queue and not failures else None
+            if name is None:
+                idle.set()
+                return
+            try:
+                # The helper process exists (started by the warm-up), so no
+                # new process starts here and the main module stays as it is.
+                future = self.pool.submit(*there(name))
+            except BaseException as err:
+                with lock:
+                    queue.append(name)
+                failures.append(err)
+                idle.set()
+                return
+            future.add_done_callback(lambda f, n=name: received(n, f))
+
+        def received(name: str, future: Future) -> None:
+            try:
+                idata, seconds = future.result()
+            except BaseException:
+                # A helper that failed or died: this process fits the model.
+                with lock:
+                    queue.append(name)
+                    failures.append(RuntimeError("helper failed"))
+                idle.set()
+                return
+            with lock:
+                done[name] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{name}")
+            advance()
+            give()
+
+        def fit_here(name: str) -> None:
+            idata, seconds = here(name)
+            with lock:
+                done[name] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{name}")
+            advance()
+
+        self.ready.add_done_callback(give)
+        while True:
+            with lock:
+                name = queue.popleft() if queue else None
+            if name is None:
+                break
+            fit_here(name)
+        if not self.ready.done():
+            # Everything was fitted here before the helper was ready.
+            idle.set()
+        idle.wait()
+        # Whatever a failed helper left behind is fitted here (an error in the
+        # model itself then surfaces in this process, as without a helper).
+        while queue:
+            fit_here(queue.popleft())
+        return {n: done[n] for n in names}
+
+    def close(self) -> None:
+        self.pool.shutdown(wait=False, cancel_futures=True)
+
+
 def run_check(
     design,
     data,
@@ -202,10 +306,16 @@ def run_check(
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     seeds = engine.seed_stream(seed, "main", "relaxations")
-    main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
-                                  label=design.label(), say=say)
-    relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
-                              fitter, progress, main) if relax else {}
+    helper = (EarlyHelper() if EarlyHelper.wanted(len(relaxation_names(design, data)), workers, relax)
+              else None)
+    try:
+        main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
+                                      label=design.label(), say=say)
+        relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
+                                  fitter, progress, main, helper) if relax else {}
+    finally:
+        if helper is not None:
+            helper.close()
     calibration = calibrate() if calibrate else None
     context = checks.Context(design, data, main, relaxed, calibration)
     interrupts.raise_if_interrupted()
