@@ -264,7 +264,7 @@ def propose(design, fit) -> NonCentring | None:
     options = {o.name for o in getattr(getattr(design, "recipe", None), "options", ())}
     if CENTRED_OPTION in options and design.options.get(CENTRED_OPTION):
         change = (f"{', '.join(children)} in the recipe's non-centred form "
-                  f"({CENTRED_OPTION}=false): offsets ~ Normal(0, 1) scaled by {scale}")
+                  f"({CENTRED_OPTION}=false, offsets ~ Normal(0, 1) scaled by {scale})")
         return NonCentring(scale, children, "option", change)
     return None
 
