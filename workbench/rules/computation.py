@@ -193,8 +193,9 @@ def revision_outcome(record: dict) -> str:
                 f"group the scale's posterior may reach zero: give it a prior that keeps it "
                 f"away from implausibly small values.")
     if agreement["agree"]:
-        text += (f" The estimates barely change (largest: {moved}, under "
-                 f"{agreement['threshold']} sd): the non-centred form fixes the funnel; adopt it.")
+        text += (f" The estimates agree (largest change: {moved}; within "
+                 f"{agreement['threshold']} sd or their Monte Carlo error): the non-centred form "
+                 f"fixes the funnel; adopt it.")
     else:
         text += (f" The estimates change ({moved}): the funnel biased the centred fit; adopt the "
                  f"non-centred form and read its estimates, not these.")
