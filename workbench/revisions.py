@@ -134,7 +134,7 @@ def non_centre(model, children, scale: str | None = None):
     """
     import pytensor
     import pytensor.tensor as pt
-    from pymc.model.fgraph import fgraph_from_model, model_deterministic, model_free_rv, model_from_fgraph
+    from pymc.model.fgraph import model_deterministic, model_free_rv, model_from_fgraph
     from pymc.pytensorf import toposort_replace
     from pytensor.tensor.type_other import NoneTypeT
 
@@ -147,13 +147,7 @@ def non_centre(model, children, scale: str | None = None):
                 + f"; expected a free variable of a location-scale family "
                   f"({', '.join(sorted(STANDARD_FORMS))})")
     names = {child: standard_name(model, child) for child in children}
-    # The function-graph form refuses custom initial values; set them again afterwards.
-    initial = dict(model.rvs_to_initial_values)
-    model.rvs_to_initial_values = {rv: None for rv in initial}
-    try:
-        graph, memo = fgraph_from_model(model)
-    finally:
-        model.rvs_to_initial_values = initial
+    graph, memo, initial = model_graph(model)
     swaps = []
     for child in children:
         node = memo[free[child]].owner  # the ModelFreeRV wrapping the child
@@ -178,11 +172,32 @@ def non_centre(model, children, scale: str | None = None):
             expression = pt.exp(expression)
         swaps.append((node.outputs[0], model_deterministic(expression, child, *node.op.dims)))
     toposort_replace(graph, swaps)
-    revised = model_from_fgraph(graph, mutate_fgraph=True)
+    return model_with_initial(model_from_fgraph(graph, mutate_fgraph=True), initial, skip=names)
+
+
+def model_graph(model):
+    """PyMC's function-graph form of ``model``: (graph, memo, custom initial values by variable).
+
+    The function-graph form refuses custom initial values, so they are left
+    out here and set again by :func:`model_with_initial` on the rebuilt model.
+    """
+    from pymc.model.fgraph import fgraph_from_model
+
+    initial = dict(model.rvs_to_initial_values)
+    model.rvs_to_initial_values = {rv: None for rv in initial}
+    try:
+        graph, memo = fgraph_from_model(model)
+    finally:
+        model.rvs_to_initial_values = initial
+    return graph, memo, initial
+
+
+def model_with_initial(rebuilt, initial: dict, skip=()):
+    """``rebuilt`` with the custom initial values of its original, by name (except ``skip``)."""
     for rv, value in initial.items():
-        if value is not None and rv.name not in names:
-            revised.set_initval(revised[rv.name], value)
-    return revised
+        if value is not None and rv.name not in skip:
+            rebuilt.set_initval(rebuilt[rv.name], value)
+    return rebuilt
 
 
 def family(rv) -> str:

@@ -369,7 +369,14 @@ def funnel_of(fit) -> Finding | None:
     diagnostics: the harness asks it first, to decide whether the revision
     the funnel's advice names is worth fitting.
     """
-    if fit is None or "posterior" not in fit.idata.children:
+    if fit is None or "posterior" not in fit.idata.children or "sample_stats" not in fit.idata.children:
+        return None
+    stats = fit.idata["sample_stats"]
+    # Most fits stop here, before any draw is transformed: too few divergences, or no centred scale.
+    if "diverging" not in stats or int(np.asarray(stats["diverging"].values, bool).sum()) < \
+            MIN_DIVERGENT_FOR_FUNNEL:
+        return None
+    if not centred_scales(getattr(fit, "model", None), fit.idata["posterior"].to_dataset()):
         return None
     return next((f for f in _located_divergences(fit)[2] if f.kind == "funnel"), None)
 
