@@ -134,3 +134,13 @@ def test_a_revised_design_travels_to_a_spawned_worker_as_plain_data():
         there = pool.submit(_built_in_helper, revised, data).result()
     assert there[0] == here[0] == ["mu", "tau", "theta_z"]
     assert there[1] == pytest.approx(here[1])
+
+
+def test_custom_initial_values_are_kept_except_the_rewritten_childs():
+    with pm.Model() as model:
+        mu = pm.Normal("mu", 0.0, 5.0, initval=1.5)
+        tau = pm.HalfNormal("tau", 5.0)
+        pm.Normal("theta", mu, tau, shape=3, initval=np.zeros(3))
+    revised = non_centre(model, ["theta"])
+    assert revised.initial_point()["mu"] == pytest.approx(1.5)
+    assert model.rvs_to_initial_values[model["mu"]] is not None  # the original keeps its own
