@@ -188,7 +188,7 @@ def test_the_report_shows_the_revision_under_computation(centred):
     fold = page.split('id="a-computation"')[1].split("</article>")[0]
     section = fold.split('data-check="revision"')[1].split("</div>")[0]
     r = revision(centred)
-    assert "Non-centred" in section and "As written" in section
+    assert "Revised" in section and "As written" in section
     before, after = count(r["before"]["divergences"]), count(r["after"]["divergences"])
     assert f'<td class="n">{before}</td><td class="n">{after}</td>' in section
     assert "theta_z ~ Normal(0, 1)" in section
