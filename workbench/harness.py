@@ -19,7 +19,7 @@ from datetime import datetime, timezone
 from importlib import metadata
 from typing import Any, Callable
 
-from workbench import checks, engine, estimates, executor, interrupts, verdicts
+from workbench import checks, engine, estimates, executor, interrupts, revisions, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -297,27 +297,32 @@ def run_check(
     say: Callable[[str], None] = lambda _: None,
     progress: bool = False,
     fitter: Callable[..., engine.Fit] | None = None,
+    revise: bool = True,
 ) -> CheckRun:
     """Fit the design, its relaxations and calibration; judge every assumption.
 
     ``fitter`` stands in for :func:`fit_design` (same arguments), e.g. a
-    :class:`workbench.fitcache.CachedFitter` that reuses stored fits.
+    :class:`workbench.fitcache.CachedFitter` that reuses stored fits. When
+    the main fit shows the funnel of a centred scale and ``revise`` is on,
+    the non-centred form is fitted too (:func:`workbench.revisions.revise`).
     """
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
-    seeds = engine.seed_stream(seed, "main", "relaxations")
+    seeds = engine.seed_stream(seed, "main", "relaxations", "revisions")
     helper = (EarlyHelper() if EarlyHelper.wanted(len(relaxation_names(design, data)), workers, relax)
               else None)
     try:
         main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
                                       label=design.label(), say=say)
+        revised = revisions.revise(design, data, main, seeds["revisions"], settings, fitter,
+                                   say) if revise else []
         relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
                                   fitter, progress, main, helper) if relax else {}
     finally:
         if helper is not None:
             helper.close()
     calibration = calibrate() if calibrate else None
-    context = checks.Context(design, data, main, relaxed, calibration)
+    context = checks.Context(design, data, main, relaxed, calibration, revisions=revised)
     interrupts.raise_if_interrupted()
     say("running checks")
     # An assumption the table cannot inform is left unchecked, with the reason.
@@ -330,6 +335,9 @@ def run_check(
         context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))
     declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
     judged = verdicts.decide(declared, findings, uninformed)
+    context.extras["revisions"] = revised
+    for record in revised:
+        record["before"]["verdict"] = next(v.verdict for v in judged if v.key == record["assumption"])
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
                     context.extras, calibration, started, time.perf_counter() - start)
 

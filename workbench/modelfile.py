@@ -765,7 +765,6 @@ def with_data_containers(model):
     import pytensor
     from pymc.model.fgraph import (
         ModelObservedRV,
-        fgraph_from_model,
         model_from_fgraph,
         model_named,
         model_observed_rv,
@@ -774,16 +773,12 @@ def with_data_containers(model):
     from pytensor.compile.sharedvalue import SharedVariable
     from pytensor.graph.basic import Constant
 
+    from workbench.revisions import model_graph, model_with_initial
+
     names = container_names(model)
     if all(isinstance(model.rvs_to_values[rv], SharedVariable) for rv in model.observed_RVs):
         return model
-    # The function-graph form refuses custom initial values; set them again afterwards.
-    initial = dict(model.rvs_to_initial_values)
-    model.rvs_to_initial_values = {rv: None for rv in initial}
-    try:
-        graph, _ = fgraph_from_model(model)
-    finally:
-        model.rvs_to_initial_values = initial
+    graph, _, initial = model_graph(model)
     swaps = []
     for node in graph.toposort():
         if not isinstance(node.op, ModelObservedRV):
@@ -796,8 +791,4 @@ def with_data_containers(model):
         named = model_named(container, name, *node.op.dims)
         swaps.append((node.outputs[0], model_observed_rv(rv, named, node.op.name, *node.op.dims)))
     toposort_replace(graph, swaps)
-    rebuilt = model_from_fgraph(graph, mutate_fgraph=True)
-    for rv, value in initial.items():
-        if value is not None:
-            rebuilt.set_initval(rebuilt[rv.name], value)
-    return rebuilt
+    return model_with_initial(model_from_fgraph(graph, mutate_fgraph=True), initial)

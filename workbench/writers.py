@@ -205,10 +205,17 @@ def summary(run) -> dict:
         "calibration": run.calibration.to_dict() if run.calibration is not None else None,
         "parameters": run.extras.get("parameters", {}),
         "sampling": run.settings.to_dict(),
+        "revisions": [_revision(r) for r in run.extras.get("revisions", [])],
     }
     if "derived" in run.extras:
         doc["derived"] = run.extras["derived"]
     return clean(doc)
+
+
+def _revision(record: dict) -> dict:
+    """A revision as summary.json lists it: what changed, before and after, agreement."""
+    keys = ("assumption", "change", "design", "before", "after", "agreement", "fixed")
+    return {k: record[k] for k in keys}
 
 
 def write_json(path: str | Path, doc: dict) -> Path:
