@@ -167,7 +167,7 @@ def interval_of(replicated, level: float = INTERVAL) -> tuple[np.ndarray, np.nda
     return low, high
 
 
-def predictive_intervals(ax, x, observed, replicated, colour=INK, label: str = "observed",
+def predictive_intervals(ax, x, observed, replicated, colour=INK, labelled: bool = True,
                          level: float = INTERVAL) -> tuple[int, int]:
     """Each observed point with its own posterior predictive interval; points outside marked.
 
@@ -175,7 +175,8 @@ def predictive_intervals(ax, x, observed, replicated, colour=INK, label: str = "
     interval is a whisker behind its point; a point outside it is drawn as
     a filled diamond in the alert colour. Returns (points outside, points).
     Artists carry the gids ``predictive-interval``, ``observed-inside`` and
-    ``observed-outside``.
+    ``observed-outside``; ``labelled`` gives them legend entries (a figure
+    that calls this several times adds :func:`interval_legend` once instead).
 
     References
     ----------
@@ -188,18 +189,30 @@ def predictive_intervals(ax, x, observed, replicated, colour=INK, label: str = "
     low, high = interval_of(replicated, level)
     shown = np.isfinite(y) & np.isfinite(low) & np.isfinite(high)
     outside = shown & ((y < low) | (y > high))
-    whiskers = ax.vlines(x[shown], low[shown], high[shown], color=colour, lw=1.0, alpha=0.55,
-                         label=f"{level:.0%} predictive interval of each point" if label else None)
-    whiskers.set_gid("predictive-interval")
     inside = shown & ~outside
-    (points,) = ax.plot(x[inside], y[inside], "o", ms=4, mfc="white", mec=colour, mew=1.1,
-                        label=label or None)
-    points.set_gid("observed-inside")
-    (marked,) = ax.plot(x[outside], y[outside], "D", ms=5, color=ALERT,
-                        label=f"outside its interval ({int(outside.sum())} of {int(shown.sum())})"
-                        if label else None)
-    marked.set_gid("observed-outside")
+    words = interval_words(int(outside.sum()), int(shown.sum()), level) if labelled else (None,) * 3
+    ax.vlines(x[shown], low[shown], high[shown], color=colour, lw=1.0, alpha=0.55, label=words[0],
+              gid="predictive-interval")
+    ax.plot(x[inside], y[inside], "o", ms=4, mfc="white", mec=colour, mew=1.1, label=words[1],
+            gid="observed-inside")
+    ax.plot(x[outside], y[outside], "D", ms=5, color=ALERT, label=words[2], gid="observed-outside")
     return int(outside.sum()), int(shown.sum())
+
+
+def interval_words(outside: int, total: int, level: float = INTERVAL) -> tuple[str, str, str]:
+    """Legend words of :func:`predictive_intervals`: whisker, point inside, point outside."""
+    return (f"{level:.0%} predictive interval of each point", "observed",
+            f"outside its interval ({outside} of {total})")
+
+
+def interval_legend(outside: int, total: int, colour=INK, level: float = INTERVAL) -> list:
+    """Legend handles for figures that draw :func:`predictive_intervals` several times."""
+    from matplotlib.lines import Line2D
+
+    whisker, point, marked = interval_words(outside, total, level)
+    return [Line2D([], [], color=colour, lw=1.0, alpha=0.55, marker="|", ms=10, ls="none", label=whisker),
+            Line2D([], [], marker="o", ms=4, mfc="white", mec=colour, ls="none", label=point),
+            Line2D([], [], marker="D", ms=5, color=ALERT, ls="none", label=marked)]
 
 
 def predictive_by_covariate(x, observed, prior, posterior, xlabel: str, ylabel: str, fitted=None):
@@ -240,18 +253,33 @@ def outside_legend(ax, fontsize: float = 8, **kwargs):
                      borderaxespad=0.0, **kwargs)
 
 
-# The histogram of a statistic spans the central part of its replicated
-# values: a few extreme replicates (a row whose expected count is nearly
-# exact) would otherwise squeeze the rest into one bar. Values beyond are
-# counted in the figure.
-STATISTIC_RANGE = (0.5, 99.5)
+# The histogram of a statistic spans its replicated values within Tukey's
+# far-out fences (3 interquartile ranges beyond the quartiles; Tukey 1977,
+# Exploratory Data Analysis): a few extreme replicates (one failure at a
+# distance where success is all but certain) would otherwise squeeze the
+# rest into one bar. Values beyond are counted on the figure.
+FENCE_IQR = 3.0
+
+
+def statistic_range(replicated: np.ndarray, observed: float) -> tuple[float, float]:
+    """The axis of a statistic's histogram: replicated values within the far-out fences, and the observed."""
+    q1, q3 = np.percentile(replicated, [25, 75])
+    spread = q3 - q1
+    low, high = float(replicated.min()), float(replicated.max())
+    if spread > 0:
+        low, high = max(low, q1 - FENCE_IQR * spread), min(high, q3 + FENCE_IQR * spread)
+    if np.isfinite(observed):
+        low, high = min(low, observed), max(high, observed)
+    if high <= low:
+        low, high = low - 0.5, high + 0.5
+    return low, high
 
 
 def statistic_check(observed, replicated, name: str, p_value: float):
     """Histogram of T(y_rep) with the observed T(y) marked, over a range robust to outliers.
 
-    The bins span the central 99% of the replicated values (and the observed
-    value); how many replicated values lie beyond is written on the figure.
+    The axis is that of :func:`statistic_range`; how many replicated values
+    lie beyond it, and how far, is written under the title.
     """
     fig, ax = _figure(5.2, 3.0)
     replicated = np.asarray(replicated, dtype=float)
@@ -259,20 +287,16 @@ def statistic_check(observed, replicated, name: str, p_value: float):
     value = float(np.nanmean(np.asarray(observed, dtype=float)))
     title = f"posterior predictive p = {p_value:.3g}"
     if finite.size:
-        low, high = np.percentile(finite, STATISTIC_RANGE)
-        if np.isfinite(value):
-            low, high = min(low, value), max(high, value)
-        if high <= low:
-            low, high = low - 0.5, high + 0.5
-        beyond = int(np.sum((finite < low) | (finite > high)))
+        low, high = statistic_range(finite, value)
         ax.hist(finite, bins=40, range=(low, high), color=FIT, alpha=0.6, label="replicated data")
-        if beyond:
-            title += (f"; {beyond} of {finite.size} replicated values lie beyond the axis "
-                      f"({number(finite.min())} to {number(finite.max())})")
+        for side, beyond, end in (("below", finite[finite < low], np.min), ("above", finite[finite > high], np.max)):
+            if beyond.size:
+                title += (f"\n{beyond.size} of {finite.size} replicated values {side} the axis "
+                          f"(to {number(end(beyond))})")
     ax.axvline(value, color=INK, lw=2, label="observed data")
     ax.set_xlabel(name)
     ax.set_yticks([])
-    ax.set_title(title, fontsize=8, loc="left", wrap=True)
+    ax.set_title(title, fontsize=8, loc="left")
     ax.legend(frameon=False, fontsize=8)
     return fig
 
@@ -380,7 +404,7 @@ def pareto_k(k: np.ndarray, threshold: float, unit: str = "row", names: list[str
     ax.plot(terms[~bad], k[~bad], "o", ms=4, color=FIT, label="k below threshold")
     if bad.any():
         ax.plot(terms[bad], k[bad], "s", ms=5, color=ALERT, label="k above threshold")
-    ax.axhline(threshold, color=INK, ls="--", lw=1)
+    ax.axhline(threshold, color=INK, ls="--", lw=1, label=f"threshold {threshold:.2f}")
     plural = unit if unit.endswith("s") else unit + "s"
     if names and len(names) == k.size and k.size <= MAX_NAMED_TERMS:
         ax.set_xticks(terms, [_without_unit(n, unit) for n in names], fontsize=7)
