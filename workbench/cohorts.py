@@ -571,7 +571,7 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     outcomes = data.extra["outcomes"]
     k = len(outcomes)
     groups = data.labels["group"][:4]
-    fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 1.2, 3.6), squeeze=False)
+    fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 2.6, 3.6), squeeze=False)
     scale = np.asarray(posterior["scale_group"], dtype=float)
     s = scale.shape[0]
     pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
