@@ -282,3 +282,13 @@ def test_compare_legend_keeps_long_design_labels_whole():
     # The legend sits below the axes, not over the points.
     fig.canvas.draw()
     assert legend.get_window_extent().y1 <= fig.axes[0].get_window_extent().y0
+
+
+def test_a_figure_made_without_pyplot_is_embedded_with_its_ticks_apart():
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(3.0, 2.0))
+    ax = fig.add_subplot()
+    ax.plot(np.linspace(-0.01, 0.01, 5), np.arange(5))
+    assert plots.to_data_uri(fig).startswith("data:image/png;base64,")
+    assert plots.overlapping_tick_labels(fig) == []

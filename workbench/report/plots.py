@@ -96,10 +96,19 @@ def _touching(labels, renderer, along: int) -> list[tuple[str, str]]:
             if a.get_points()[1][along] + TICK_GAP_PX > b.get_points()[0][along]]
 
 
+def _drawn(fig):
+    """The renderer of ``fig`` after drawing it (a figure made without pyplot gets a raster canvas)."""
+    if not hasattr(fig.canvas, "get_renderer"):
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        FigureCanvasAgg(fig)
+    fig.canvas.draw()
+    return fig.canvas.get_renderer()
+
+
 def overlapping_tick_labels(fig) -> list[tuple[str, str]]:
     """Pairs of neighbouring tick labels of ``fig`` that touch or overlap when drawn."""
-    fig.canvas.draw()
-    renderer = fig.canvas.get_renderer()
+    renderer = _drawn(fig)
     return [pair for ax in fig.axes for along, axis in enumerate((ax.xaxis, ax.yaxis))
             for pair in _touching(_shown_tick_labels(axis), renderer, along)]
 
@@ -112,8 +121,7 @@ def keep_tick_labels_apart(fig) -> None:
     """
     from matplotlib.ticker import FixedLocator, MaxNLocator
 
-    fig.canvas.draw()
-    renderer = fig.canvas.get_renderer()
+    renderer = _drawn(fig)
     for ax in fig.axes:
         for along, axis in enumerate((ax.xaxis, ax.yaxis)):
             step, bins, named = 1, None, None
