@@ -115,16 +115,33 @@ def eventual_shares(base, eventual: float, drift: float) -> np.ndarray:
     return expit(logit(eventual) + drift * position)
 
 
-def run_one(reg, name: str, variant: str, scenario: str, target: str, seed: int, settings,
-            power_sims: int, say) -> dict:
+def prepare(reg, name: str, variant: str, scenario: str, seed: int):
+    """The layout, planted fault, design and simulated table of one run (the same for every use)."""
     recipe = reg.get(name)
     rng = np.random.default_rng([seed, VARIANTS.index((name, variant)), len(scenario), sum(map(ord, scenario))])
     layout = layouts.draw(name, rng, variant)
     planted, options = planted_for(recipe, scenario, rng)
     design = make_design(recipe, {**layout.options, **options}, {})
     base = design.validate(layout.table)
+    data = simulate(design, base, layout.truth, planted, rng)
+    return layout, planted, options, design, base, data
+
+
+def slug_of(name, variant, scenario, seed) -> str:
+    slug = f"{name}-{variant or 'default'}-{scenario}-{seed:03d}".replace(" ", "_")
+    return slug.replace("(", "").replace(")", "").replace(":", "_")
+
+
+def power_of(reg, name, variant, scenario, seed, sims) -> float:
+    layout, planted, _, design, base, _ = prepare(reg, name, variant, scenario, seed)
+    return ideal_power.power(design, base, layout.truth, planted, scenario, sims,
+                             np.random.default_rng([seed, 7]), simulate)
+
+
+def run_one(reg, name: str, variant: str, scenario: str, target: str, seed: int, settings,
+            power_sims: int, say) -> dict:
+    layout, planted, options, design, base, data = prepare(reg, name, variant, scenario, seed)
     truth = layout.truth
-    data = simulate(design, base, truth, planted, rng)
     info = harness.DataInfo(f"simulated:{name}:{scenario}:{seed}", "", data.rows)
     record = {"recipe": name, "variant": variant, "scenario": scenario, "target": target, "seed": seed,
               "layout": layout.describe, "planted": planted, "options": {**layout.options, **options},
@@ -150,7 +167,18 @@ def run_one(reg, name: str, variant: str, scenario: str, target: str, seed: int,
 
 
 def rejudge(record: dict) -> dict:
-    """Verdicts from the stored findings with the rules as they are now."""
+    """Verdicts from the stored findings with the rules as they are now.
+
+    A relaxation finding stored before it carried ``absorbs_misfit`` gets the
+    flag from the recipe's relaxation as declared now (a fixed property of
+    the design, not of the fit).
+    """
+    recipe = registry.load().get(record["recipe"])
+    flags = {a.relaxation.parameter: a.relaxation.absorbs_misfit for a in recipe.assumptions
+             if a.relaxation is not None}
+    for f in record["findings"]:
+        if f.kind == "relaxation" and "absorbs_misfit" not in f.numbers:
+            f.numbers["absorbs_misfit"] = flags.get(f.numbers["parameter"], False)
     judged = verdicts.decide(record["declared"], record["findings"], record["uninformed"])
     return {v.key: v.verdict for v in judged}
 
@@ -260,6 +288,8 @@ def main() -> int:
     parser.add_argument("--store", help="keep every run here (one file per run)")
     parser.add_argument("--rejudge", help="print the table from the runs stored in this folder")
     parser.add_argument("--power", action="store_true", help="with --rejudge: add missing ideal powers")
+    parser.add_argument("--power-only", action="store_true",
+                        help="compute the ideal powers of the runs' layouts into --store (no checks)")
     parser.add_argument("--json", help="also write the table as JSON here")
     parser.add_argument("--verbose", action="store_true")
     args = parser.parse_args()
@@ -271,6 +301,10 @@ def main() -> int:
     if args.rejudge:
         folder = Path(args.rejudge)
         records = load(folder)
+        for r in records:
+            stored = folder / f"{slug_of(r['recipe'], r['variant'], r['scenario'], r['seed'])}.power"
+            if "power" not in r and stored.exists():
+                r["power"] = float(stored.read_text())
         if args.power:
             for path, r in zip(sorted(folder.glob("*.pkl")), records):
                 if r["scenario"] != CLEAN and "power" not in r and "findings" in r:
@@ -297,13 +331,24 @@ def main() -> int:
                 for scenario, target in faults(reg.get(name)):
                     if args.scenario and scenario not in args.scenario:
                         continue
+                    slug = slug_of(name, variant, scenario, seed)
+                    if args.power_only:
+                        if scenario != CLEAN and not (store / f"{slug}.power").exists():
+                            value = power_of(reg, name, variant, scenario, seed, args.power_sims)
+                            (store / f"{slug}.power").write_text(f"{value}\n")
+                            say(f"{slug}: ideal power {value:.2f}")
+                        continue
+                    if store and (store / f"{slug}.pkl").exists():
+                        with open(store / f"{slug}.pkl", "rb") as handle:
+                            records.append(pickle.load(handle))
+                        continue
                     record = run_one(reg, name, variant, scenario, target, seed, settings, args.power_sims, say)
                     records.append(record)
                     if store:
-                        slug = f"{name}-{variant or 'default'}-{scenario}-{seed:03d}".replace(" ", "_")
-                        slug = slug.replace("(", "").replace(")", "").replace(":", "_")
                         with open(store / f"{slug}.pkl", "wb") as handle:
                             pickle.dump(record, handle)
+        if args.power_only:
+            return 0
         rows = table(records, fresh=False)
     show(rows)
     if args.json:
