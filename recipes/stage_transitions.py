@@ -971,7 +971,7 @@ RECIPE = Recipe(
             relaxation=relaxation(build_model, "overdispersion",
                                   "units of a cohort move together (Dirichlet-multinomial)",
                                   # Planted: a stage of 50 units varies about 3.5 times as much as multinomial.
-                                  null=0.0, negligible=0.005, planted=0.05),
+                                  null=0.0, negligible=0.005, planted=0.05, absorbs_misfit=True),
             advice="Counts vary more than multinomial: units move in batches; model a cohort-period "
                    "effect or use the overdispersed likelihood.",
         ),

@@ -261,7 +261,7 @@ def distances_to_compare(data) -> str:
     return "the table holds fewer than three distances, so no trend with distance can show"
 
 
-def _relaxation(parameter, meaning, null, negligible, planted):
+def _relaxation(parameter, meaning, null, negligible, planted, absorbs_misfit=False):
     return Relaxation(
         parameter=parameter,
         meaning=meaning,
@@ -269,6 +269,7 @@ def _relaxation(parameter, meaning, null, negligible, planted):
         null=null,
         negligible=negligible,
         planted=planted,
+        absorbs_misfit=absorbs_misfit,
     )
 
 
@@ -384,7 +385,7 @@ RECIPE = Recipe(
                 "overdispersion", "attempts within a row share a common offset (beta-binomial)",
                 # Within-row correlation 0.02: variance about 6x binomial at 250
                 # attempts, as when each row is one session with its own conditions.
-                null=0.0, negligible=0.005, planted=0.02,
+                null=0.0, negligible=0.005, planted=0.02, absorbs_misfit=True,
             ),
             advice="Rows vary more than binomial: add a row- or session-level effect "
                    "(beta-binomial or a random effect) or a group column for who attempted.",

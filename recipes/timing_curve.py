@@ -107,9 +107,21 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         else:
             eventual = pt.ones(())
         share = pm.Deterministic("share", pt.reshape(eventual, (1,)), dims="outcome")
-        cumulative = cohorts.cumulative_tensor(
-            data, options["family"], scale_group, shape, share, relax, prior
-        )
+        if relax == "cohort_share_sd" and options["eventual"] == "estimate":
+            # Each cohort's eventual share on the log-odds scale about the typical one.
+            sd = prior("cohort_share_sd")
+            z = pm.Normal("cohort_share_z", 0.0, 1.0, dims="cohort")
+            logit_row = pt.log(eventual) - pt.log1p(-eventual) + (sd * z)[data["cohort"]]
+            cumulative = cohorts.cumulative_tensor(
+                data, options["family"], scale_group, shape, pt.ones((1,)), relax, prior
+            ) * pm.math.sigmoid(logit_row)[:, None]
+        else:
+            if relax == "cohort_share_sd":
+                # Every unit has the event under eventual=all: no share to differ.
+                pm.Deterministic("cohort_share_sd", pt.zeros(()))
+            cumulative = cohorts.cumulative_tensor(
+                data, options["family"], scale_group, shape, share, relax, prior
+            )
         pm.Deterministic("cumulative", cumulative[:, 0], dims="row")
         cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
     return model
@@ -185,6 +197,10 @@ def _eventual_is_all(options) -> bool:
     return options.get("eventual") == "all"
 
 
+def _eventual_is_estimated(options) -> bool:
+    return options.get("eventual") == "estimate"
+
+
 RECIPE = Recipe(
     name=NAME,
     summary="Units of a cohort have one event at a random age; some may never have it.",
@@ -196,6 +212,9 @@ RECIPE = Recipe(
         Parameter("eventual", "share of units that ever have the event (eventual=estimate)", "beta(1,1)"),
         # Relaxation parameters (only present in the expanded models).
         Parameter("never", "share of units that never have the event (eventual=all relaxed)", "beta(1,20)"),
+        # sd 0.5 on log-odds: cohorts' eventual shares a few points to about
+        # ten points apart around a share of a half.
+        Parameter("cohort_share_sd", "sd of the eventual share's log-odds between cohorts", "halfnormal(0.5)"),
         *cohorts.RELAXATION_PARAMETERS,
     ),
     assumptions=(
@@ -218,6 +237,21 @@ RECIPE = Recipe(
                    "the oldest cohorts longer before trusting the plateau.",
         ),
         *cohorts.shared_assumptions(build_model),
+        # Cohorts may differ in how many units ever have the event, not only in
+        # timing. Without this structural expansion such a difference shows as a
+        # late trend, a plateau shortfall and extra variation at once, and only
+        # the catch-all overdispersion can absorb it. Judged by the statistic of
+        # the entry above (an assumption is judged once per key).
+        Assumption(
+            key="cohort_homogeneity",
+            statement="Every cohort (within a group) follows the same timing.",
+            relaxation=cohorts.relaxation(
+                build_model, "cohort_share_sd",
+                "each cohort's eventual share may differ (log-normal effect on its log-odds)",
+                null=0.0, negligible=0.1, applies=_eventual_is_estimated,
+            ),
+            informed_by=cohorts.cohorts_to_compare,
+        ),
     ),
     validate=validate,
     simulate=simulate,

@@ -181,3 +181,93 @@ def test_a_statistic_the_fitted_model_makes_is_a_prior_data_conflict():
 def test_a_prior_that_holds_the_fit_away_from_the_data_is_still_blamed():
     # The posterior barely moved from its prior: the prior may be what the fit cannot leave.
     assert by_key([coverage(0.0005, 0.001, prior_sd_ratio=0.97)])[PRIORS].verdict == "broken"
+
+
+# --- a cascade of alarms resolved to its causes ---------------------------------------------
+
+COHORT_DECLARED = [("curve_shape", "The timing follows the chosen family.", "Try another family."),
+                   ("eventual_fraction", "The eventual share is as modelled.", "Estimate it."),
+                   ("cohort_homogeneity", "Every cohort follows the same timing.", "Add a cohort effect."),
+                   ("independent_units", "Units of a cohort behave independently.", "Overdisperse.")]
+
+
+def statistic(key, name, p):
+    return Finding(key, "ppc", f"ppc:{name}", 1.0, p, name, {})
+
+
+def under(key, name, cause, parameter, p):
+    return Finding(key, "ppc_under_relaxation", f"ppc:{name}|{parameter}", 1.0, p, "under",
+                   {"relaxation_of": cause})
+
+
+def catch_all(key, gain):
+    finding = relaxation(key, "overdispersion", gain)
+    finding.numbers["absorbs_misfit"] = True
+    return finding
+
+
+def cohort_cascade(p_curve_under, p_plateau_under):
+    """A cohort fault whose relaxation gains least, beside a curve and a plateau alarm."""
+    return by_key_in(COHORT_DECLARED, [
+        statistic("cohort_homogeneity", "cohort_spread", 0.0001), relaxation("cohort_homogeneity", "cohort_sd", 30.0),
+        statistic("curve_shape", "late_trend", 0.0005), relaxation("curve_shape", "curve_power", 45.0),
+        statistic("eventual_fraction", "plateau_level", 0.001),
+        under("curve_shape", "late_trend", "cohort_homogeneity", "cohort_sd", p_curve_under),
+        under("eventual_fraction", "plateau_level", "cohort_homogeneity", "cohort_sd", p_plateau_under),
+        # The curve's relaxation leaves the cohorts apart and the plateau short.
+        under("cohort_homogeneity", "cohort_spread", "curve_shape", "curve_power", 0.0001),
+        under("eventual_fraction", "plateau_level", "curve_shape", "curve_power", 0.001),
+    ])
+
+
+def by_key_in(declared, findings):
+    return {v.key: v for v in verdicts.decide(declared, findings)}
+
+
+def test_alarms_that_one_relaxation_explains_are_its_symptoms_even_when_they_gain_more():
+    # Under the cohort relaxation the late trend and the plateau look ordinary; under the
+    # curve's relaxation the cohorts still differ: the cohorts are the cause.
+    judged = cohort_cascade(p_curve_under=0.3, p_plateau_under=0.5)
+    assert judged["cohort_homogeneity"].verdict == "broken"
+    assert judged["curve_shape"].verdict == "doubtful"
+    assert judged["curve_shape"].symptom_of == "cohort_homogeneity"
+    assert judged["eventual_fraction"].symptom_of == "cohort_homogeneity"
+    assert "symptom_of" in judged["curve_shape"].to_dict()
+
+
+def test_two_causes_that_each_stand_under_the_others_relaxation_are_both_named():
+    judged = cohort_cascade(p_curve_under=0.0005, p_plateau_under=0.5)
+    assert judged["cohort_homogeneity"].verdict == judged["curve_shape"].verdict == "broken"
+    assert judged["curve_shape"].confirmed_with == ["cohort_homogeneity"]
+    assert judged["cohort_homogeneity"].confirmed_with == ["curve_shape"]
+    line = verdicts.headline(list(judged.values()))
+    assert "Two broken assumptions, each confirmed under the other's relaxation" in line
+    assert "curve_shape (" in line and "cohort_homogeneity (" in line
+
+
+def drift_beside_overdispersion(p_dispersion_under_drift):
+    """A drift over periods (gain 1187) beside the catch-all overdispersion (gain 1579)."""
+    return by_key_in(DRIFT_DECLARED, [
+        statistic("time_homogeneity", "period_trend", 0.0001), relaxation("time_homogeneity", "stay_drift", 1187.0),
+        statistic("independent_units", "dispersion", 0.0001), catch_all("independent_units", 1579.0),
+        # Extra variation absorbs the drift: replicates of the overdispersed model are wide enough.
+        under("time_homogeneity", "period_trend", "independent_units", "overdispersion", 0.3),
+        under("independent_units", "dispersion", "time_homogeneity", "stay_drift", p_dispersion_under_drift),
+    ])
+
+
+DRIFT_DECLARED = DECLARED + [("independent_units", "Units move independently.", "Model a batch effect.")]
+
+
+def test_a_structural_cause_outranks_the_overdispersion_that_absorbs_it():
+    judged = drift_beside_overdispersion(p_dispersion_under_drift=0.4)
+    assert judged["time_homogeneity"].verdict == "broken"
+    assert judged["independent_units"].verdict == "doubtful"
+    assert judged["independent_units"].advice.startswith("Revisit after addressing 'time_homogeneity'")
+
+
+def test_overdispersion_that_remains_under_the_structural_relaxation_is_the_cause():
+    judged = drift_beside_overdispersion(p_dispersion_under_drift=0.0001)
+    assert judged["independent_units"].verdict == "broken"
+    assert judged["time_homogeneity"].verdict == "doubtful"
+    assert judged["time_homogeneity"].symptom_of == "independent_units"

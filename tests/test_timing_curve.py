@@ -348,3 +348,17 @@ def test_a_model_compiled_for_one_table_does_not_serve_another_of_the_same_shape
         harness.fit_design(design, first, 3, settings, prior=False)
         after = harness.fit_design(design, second, 3, settings, prior=False).draws(["eventual"])
     np.testing.assert_array_equal(after["eventual"], alone["eventual"])
+
+
+def test_the_cohort_share_relaxation_gives_each_cohort_its_own_eventual_share():
+    design, data = validated(small_table(), eventual="estimate")
+    relaxation = next(a.relaxation for a in RECIPE.assumptions if a.relaxation
+                      and a.relaxation.parameter == "cohort_share_sd")
+    assert a_key(relaxation) == "cohort_homogeneity"
+    assert relaxation.applies_to({"eventual": "estimate"}) and not relaxation.applies_to({"eventual": "all"})
+    model = design.build(data, relaxation)
+    assert {"cohort_share_sd", "cohort_share_z"} <= set(model.named_vars) and finite_logp(model)
+
+
+def a_key(relaxation):
+    return next(a.key for a in RECIPE.assumptions if a.relaxation is relaxation)

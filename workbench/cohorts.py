@@ -652,11 +652,11 @@ RELAXATION_PARAMETERS = (
 
 
 def relaxation(build_model, parameter, meaning, null, negligible, applies=None, planted=None,
-               planted_options=None) -> Relaxation:
+               planted_options=None, absorbs_misfit=False) -> Relaxation:
     """The expansion of ``build_model`` by one relaxation parameter."""
     return Relaxation(parameter=parameter, meaning=meaning, build=partial(build_model, relax=parameter),
                       null=null, negligible=negligible, applies=applies, planted=planted,
-                      planted_options=planted_options)
+                      planted_options=planted_options, absorbs_misfit=absorbs_misfit)
 
 
 def cohorts_to_compare(data: Dataset) -> str:
@@ -720,7 +720,7 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
                 build_model, "overdispersion",
                 "units of a cohort share a common influence (Dirichlet-multinomial)",
                 # Planted: a cohort of 100 varies about 3 times as much as multinomial.
-                null=0.0, negligible=0.005, planted=0.02,
+                null=0.0, negligible=0.005, planted=0.02, absorbs_misfit=True,
             ),
             advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
                    "site, a day); model it as an effect or use the overdispersed likelihood.",

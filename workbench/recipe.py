@@ -134,6 +134,11 @@ class Relaxation:
     applies: Callable[[Mapping[str, Any]], bool] | None = None
     planted: float | None = None
     planted_options: Mapping[str, str] | None = None
+    # True for extra variation that any misfit can hide in (a beta-binomial or
+    # Dirichlet-multinomial concentration): with large counts it gains from a
+    # structural fault as much as from its own, so the verdict step names it
+    # the cause only when it remains under the best structural relaxation.
+    absorbs_misfit: bool = False
 
     def applies_to(self, options: Mapping[str, Any]) -> bool:
         """Whether this expansion means anything under the given options."""

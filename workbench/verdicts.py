@@ -44,6 +44,9 @@ class Verdict:
     strength: float = 0.0
     # The key of the assumption whose failure explains this one's alarm ('' when none).
     symptom_of: str = ""
+    # Other causes that stand beside this one: broken assumptions whose alarms
+    # remain under each other's relaxed models (none is a symptom of another).
+    confirmed_with: list[str] = field(default_factory=list)
 
     @property
     def decided_by(self) -> Finding | None:
@@ -83,6 +86,10 @@ class Verdict:
         }
         if self.contributors:
             doc["contributors"] = [dict(c) for c in self.contributors]
+        if self.symptom_of:
+            doc["symptom_of"] = self.symptom_of
+        if self.confirmed_with:
+            doc["confirmed_with"] = list(self.confirmed_with)
         return doc
 
 
@@ -219,6 +226,20 @@ def headline(verdicts: list[Verdict]) -> str:
     ranked = rank(verdicts)
     causes = [v.symptom_of for v in ranked if v.symptom_of]
     cause = next((v for v in ranked if causes and v.key == causes[0]), ranked[0])
+    if cause.verdict == BROKEN and cause.confirmed_with:
+        # Several causes stand: name them all, each with its own symptoms.
+        named = [cause] + [v for v in ranked if v.key in cause.confirmed_with]
+        others = "others' relaxations" if len(named) > 2 else "other's relaxation"
+        text = f"{found}. {_count_word(len(named))} broken assumptions, each confirmed under the {others}: "
+        parts = []
+        for v in named:
+            own = [s.key for s in ranked if s.symptom_of == v.key]
+            parts.append(f"{v.key} ({v.statement.rstrip('.')})"
+                         + (f", with {', '.join(own)} following from it" if own else ""))
+        text += "; ".join(parts) + "."
+        if cause.advice:
+            text += f" Next step: {cause.advice}"
+        return text
     symptoms = [v.key for v in ranked if v.symptom_of == cause.key]
     role = "Likely cause" if cause.verdict == BROKEN else "Most in doubt"
     text = f"{found}. {role}: {cause.key} ({cause.statement.rstrip('.')})"
@@ -228,3 +249,7 @@ def headline(verdicts: list[Verdict]) -> str:
     if cause.advice:
         text += f" Next step: {cause.advice}"
     return text
+
+
+def _count_word(n: int) -> str:
+    return {2: "Two", 3: "Three", 4: "Four"}.get(n, str(n))

@@ -89,6 +89,7 @@ def relaxation_finding(assumption, relaxation, expanded, original, labels=None) 
             "interval": [float(lo), float(hi)],
             "elpd_diff": diff,
             "elpd_se": se,
+            "absorbs_misfit": bool(relaxation.absorbs_misfit),
             "contributors": contributors(gain, labels),
         },
         figure=f"relaxation-{assumption.key}",

@@ -110,54 +110,134 @@ def _relaxation_gain(verdict: Verdict) -> float | None:
     return max(gains) if gains else None
 
 
+def _absorbs_misfit(verdict: Verdict) -> bool:
+    return any(f.numbers.get("absorbs_misfit") for f, _ in verdict.evidence if f.kind == "relaxation")
+
+
+def _cause_rank(verdict: Verdict) -> tuple[bool, float]:
+    """Order of candidate causes: structural relaxations before the catch-all, then by gain.
+
+    A relaxation that adds extra variation (beta-binomial, Dirichlet-multinomial)
+    absorbs any structural misfit once counts are large, so it gains from a
+    drift or a wrong curve shape about as much as from real overdispersion,
+    and often more than the structural relaxation that describes the fault.
+    Its gain is therefore no evidence against a structural cause: a structural
+    relaxation outranks it whatever the gains, and the catch-all is the cause
+    only when its alarm remains under the best structural relaxation.
+    """
+    return (not _absorbs_misfit(verdict), _relaxation_gain(verdict) or 0.0)
+
+
+def _p_under(verdict: Verdict, cause: Verdict) -> float | None:
+    """How ordinary ``verdict``'s statistics look under ``cause``'s relaxed models (None: not scored).
+
+    Per relaxed model of the cause the smallest p-value of the verdict's
+    statistics; over the cause's relaxed models (an assumption may have
+    several expansions) the largest: one expansion that explains the alarm
+    is enough.
+    """
+    per_model: dict[str, float] = {}
+    for f, _ in verdict.evidence:
+        if f.kind == "ppc_under_relaxation" and f.numbers.get("relaxation_of") == cause.key \
+                and f.p_value is not None:
+            model = f.check.rpartition("|")[2]
+            per_model[model] = min(per_model.get(model, 1.0), f.p_value)
+    return max(per_model.values()) if per_model else None
+
+
+def _explains(cause: Verdict, verdict: Verdict) -> bool:
+    """Whether ``verdict``'s statistic looks ordinary on replicates of ``cause``'s relaxed model."""
+    p = _p_under(verdict, cause)
+    return p is not None and p >= PPC_DOUBTFUL_P
+
+
+def _statistic_alarmed(verdict: Verdict) -> bool:
+    return any(j.level > 0 for f, j in verdict.evidence if f.kind == "ppc")
+
+
+def _is_symptom(verdict: Verdict, cause: Verdict) -> bool:
+    """Whether ``cause``'s relaxation accounts for ``verdict``'s alarm.
+
+    The cause's relaxed model must make the verdict's statistic ordinary. An
+    alarm raised by the statistic is then a symptom unless the explanation
+    runs both ways and the verdict outranks the cause (mutual explanation:
+    the better-ranked relaxation is the cause). An alarm raised by a
+    relaxation alone (its statistic was ordinary to begin with, so the
+    re-scored statistic says nothing) is a symptom only of a cause that
+    outranks it.
+    """
+    if not _explains(cause, verdict):
+        return False
+    if _relaxation_gain(verdict) is None:
+        return True
+    outranks = _cause_rank(verdict) > _cause_rank(cause)
+    if _statistic_alarmed(verdict):
+        return not (outranks and _explains(verdict, cause))
+    return not outranks
+
+
 @settle
 def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
-    """Demote broken verdicts whose alarm is explained by a stronger failure.
+    """Resolve a cascade of alarms to its causes; demote the rest to symptoms.
 
-    When assumptions with relaxations look broken, the one whose relaxation
-    improves prediction most is taken as the cause. Another broken assumption
-    is a symptom of it when its own relaxation gains less (or it has none) and
-    its targeted statistic looks ordinary under the cause's relaxed model. Broken
-    ``computation`` is a symptom when the cause's relaxed model samples
-    cleanly. A symptom becomes doubtful with advice to revisit it after
-    fixing the cause. So does a broken ``priors`` whose only conflict is a
-    posterior beyond its prior draws that the cause's relaxed model removes.
+    Candidate causes are the broken assumptions with a relaxed fit, ranked by
+    :func:`_cause_rank` (structural before the catch-all, then by LOO gain).
+    A broken assumption is a symptom of a candidate when that candidate's
+    relaxed model makes its targeted statistic look ordinary
+    (:func:`_is_symptom`); a candidate that is itself a symptom of another
+    is no cause. The causes left stand together: two broken assumptions,
+    each confirmed under the other's relaxation, are both named
+    (``Verdict.confirmed_with``). Broken ``computation`` is a symptom when a
+    cause's relaxed model samples cleanly. A symptom becomes doubtful with
+    advice to revisit it after fixing the cause. So does a broken ``priors``
+    whose only conflict is a posterior beyond its prior draws that the
+    cause's relaxed model removes.
     """
-    relaxed = [v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None]
+    relaxed = sorted((v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None),
+                     key=_cause_rank, reverse=True)
     if not relaxed:
         return
-    cause = max(relaxed, key=_relaxation_gain)
-    cause_gain = _relaxation_gain(cause)
+    # A candidate explained by a better-placed standing candidate is no cause.
+    causes: list[Verdict] = []
+    for v in relaxed:
+        if not any(_is_symptom(v, c) for c in causes):
+            causes.append(v)
+    # Late candidates may explain earlier ones (a structural cause of lower gain
+    # accounts for a catch-all's alarm but not the other way round): drop those.
+    causes = [c for c in causes if not any(_is_symptom(c, other) for other in causes if other is not c)] \
+        or causes[:1]
     for v in verdicts:
-        # An assumption without a relaxation (or whose expansion does not apply
-        # to these options) is judged by its statistic alone: it gains nothing.
-        gain = _relaxation_gain(v)
-        if v is cause or v.verdict != BROKEN or (gain is not None and gain >= cause_gain):
+        if v.verdict != BROKEN or v in causes or v.key in (COMPUTATION, PRIORS):
             continue
-        under = [f.p_value for f, _ in v.evidence
-                 if f.kind == "ppc_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
-        if under and min(under) >= PPC_DOUBTFUL_P:
+        cause = next((c for c in causes if _is_symptom(v, c)), None)
+        if cause is not None:
             _demote(v, cause, f"once that assumption is relaxed this one's statistic looks "
-                              f"ordinary ({p_equals(min(under))})")
+                              f"ordinary ({p_equals(_p_under(v, cause))})")
+    for v in causes:
+        v.confirmed_with = [c.key for c in causes if c is not v]
     for v in verdicts:
         if v.key != COMPUTATION or v.verdict != BROKEN:
             continue
-        relaxed = [f.numbers for f, _ in v.evidence
-                   if f.kind == "computation_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
-        if relaxed and relaxed[0]["max_rhat"] < RELAXED_RHAT_OK and relaxed[0]["divergences"] == 0:
-            _demote(v, cause, "the sampler explores the relaxed model cleanly, so its trouble here "
-                              "comes from the misfit, not from the parameterisation")
+        for cause in causes:
+            relaxed_fit = [f.numbers for f, _ in v.evidence if f.kind == "computation_under_relaxation"
+                           and f.numbers.get("relaxation_of") == cause.key]
+            if relaxed_fit and relaxed_fit[0]["max_rhat"] < RELAXED_RHAT_OK and relaxed_fit[0]["divergences"] == 0:
+                _demote(v, cause, "the sampler explores the relaxed model cleanly, so its trouble here "
+                                  "comes from the misfit, not from the parameterisation")
+                break
     for v in verdicts:
         if v.key != PRIORS or v.verdict != BROKEN:
             continue
         # Only a conflict of posterior against prior draws is re-scored under relaxation.
         if any(j.level == 2 and f.kind != "prior_tail" for f, j in v.evidence):
             continue
-        relaxed = [f.numbers for f, _ in v.evidence
-                   if f.kind == "prior_tail_under_relaxation" and f.numbers.get("relaxation_of") == cause.key]
-        if relaxed and not relaxed[0]["beyond_prior"]:
-            _demote(v, cause, "under its relaxed model every parameter lies among its prior draws "
-                              "again, so the conflict comes from the misfit, not from the priors")
+        for cause in causes:
+            relaxed_tail = [f.numbers for f, _ in v.evidence if f.kind == "prior_tail_under_relaxation"
+                            and f.numbers.get("relaxation_of") == cause.key]
+            if relaxed_tail and not relaxed_tail[0]["beyond_prior"]:
+                _demote(v, cause, "under its relaxed model every parameter lies among its prior draws "
+                                  "again, so the conflict comes from the misfit, not from the priors")
+                break
 
 
 def _demote(verdict: Verdict, cause: Verdict, why: str) -> None:
