@@ -21,8 +21,8 @@ column the model leaves unused, this module derives
 ``constant_scale:VAR``
     A location-scale likelihood's scale is the same in every row. Statistic:
     slope of |standardized residual| on the standardized fitted location.
-    Relaxation: log scale linear in the standardized fitted location (null
-    slope 0).
+    Relaxation: log scale linear in the fitted location (centred, in units of
+    the observed sd of the outcome; null slope 0).
 ``same_across:COLUMN``
     Rows do not differ by a label column the model ignores. Statistic:
     variance across the column's levels of the mean standardized residual.
@@ -107,7 +107,7 @@ OFFSET_PRIOR_SD = 1.0
 # How far from the null an expansion parameter must be to matter:
 # 10% extra variance at the average mean; 2% structural zeros; nu above 10
 # (a t with 10 degrees of freedom has a 0.99 quantile within 5% of the
-# normal's); a scale changing by 10% per sd of the fitted location; level
+# normal's); a scale changing by 10% per sd of the outcome along the fit; level
 # offsets of sd 0.1 on the linear predictor (10% on a rate or a location in
 # tenths of the scale).
 NEGLIGIBLE = {DISPERSION: 0.1, EXCESS_ZEROS: 0.02, TAILS: 0.1, CONSTANT_SCALE: 0.1, SAME_ACROSS: 0.1}
@@ -138,7 +138,7 @@ MEANINGS = {
     DISPERSION: "extra variance of {var} at the average mean, beyond {family}",
     EXCESS_ZEROS: "share of structural zeros of {var}",
     TAILS: "1/nu of Student-t errors for {var}",
-    CONSTANT_SCALE: "slope of the log scale of {var} per sd of its fitted location",
+    CONSTANT_SCALE: "slope of the log scale of {var} on its fitted location, in sds of {var}",
     SAME_ACROSS: "sd of offsets per level of {column} on the linear predictor",
 }
 STEMS = {DISPERSION: "extra_dispersion", EXCESS_ZEROS: "zero_share", TAILS: "inverse_nu",
@@ -441,8 +441,14 @@ def _expanded_likelihood(spec: Spec, rv, value, new: dict, frame, pt):
                                 shape=shape)
     if spec.kind == CONSTANT_SCALE:
         *head, location, scale = params
-        centred = location - pt.mean(location)
-        z = centred / pt.sqrt(pt.mean(centred**2))
+        # The fitted location in units of the outcome's observed sd (read from the
+        # observed container, so a refit on new outcomes needs no recompile). Not
+        # in units of its own sd: that would keep z at full size as the slopes of
+        # the location shrink, and let a spread that grows with z stand in for
+        # the trend (a second mode with a flat location).
+        observed = pt.cast(value, "float64")
+        spread = pt.sqrt(pt.mean((observed - pt.mean(observed)) ** 2)) + 1e-12
+        z = (location - pt.mean(location)) / spread
         scale = scale * pt.exp(new["slope"] * z)
         return _location_scale(family, head, location, scale, shape)
     if spec.kind == SAME_ACROSS:
@@ -505,6 +511,7 @@ class FittedValues:
     def _function(self, frame: pd.DataFrame, var: str, model=None):
         key = (id(frame), var)
         if key not in self._functions or self._functions[key][0] is not frame:
+            # (frame, names, function, shape of the observed values)
             self._functions[key] = (frame, *_compile_parameters(model or self.build(frame), var))
             while len(self._functions) > self.KEEP:
                 self._functions.pop(next(iter(self._functions)))
@@ -512,7 +519,7 @@ class FittedValues:
 
     def parameters(self, frame: pd.DataFrame, var: str, draws: dict) -> list[np.ndarray]:
         """The likelihood parameters of ``var``, one row per draw (flattened to (S, n))."""
-        names, function = self._function(frame, var)
+        names, function, shape = self._function(frame, var)
         inputs = [np.asarray(draws[n]) for n in names]
         digest = hashlib.sha256(var.encode())
         for value in inputs:
@@ -522,7 +529,9 @@ class FittedValues:
         if key not in self._results:
             s = inputs[0].shape[0] if inputs else 1
             out = function(*inputs)
-            self._results[key] = [np.asarray(o, dtype=float).reshape(s, -1) for o in out]
+            # A parameter no free variable touches (binomial trials) has no draw axis.
+            self._results[key] = [np.broadcast_to(np.asarray(o, dtype=float), (s,) + shape)
+                                  .reshape(s, -1) for o in out]
             while len(self._results) > self.KEEP:
                 self._results.pop(next(iter(self._results)))
         return self._results[key]
@@ -532,10 +541,9 @@ class FittedValues:
         import pymc as pm
 
         try:
-            names, function = self._function(frame, var, model)
+            names, function, _ = self._function(frame, var, model)
             free = [model[n] for n in names]
-            values = pm.draw(free, random_seed=0) if free else []
-            values = [values] if len(free) == 1 else values
+            values = list(pm.draw(free, random_seed=0)) if free else []
             out = function(*[np.asarray(v)[None] for v in values])
         except Exception:  # a model whose prior cannot be drawn: treat the location as unknown
             return None
@@ -558,7 +566,8 @@ def _compile_parameters(model, var: str):
     outputs = vectorize_graph(outputs, batched)
     function = pytensor.function(list(batched.values()), outputs, mode="FAST_COMPILE",
                                  on_unused_input="ignore")
-    return [v.name for v in free], function
+    shape = tuple(int(n) for n in value.shape.eval())
+    return [v.name for v in free], function, shape
 
 
 def _moments(family: str, params: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
