@@ -18,7 +18,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import pymc as pm
 import pytest
 import scipy.stats
 import statsmodels.api as sm

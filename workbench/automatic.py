@@ -358,15 +358,12 @@ def relaxed_model(spec: Spec, model, frame: pd.DataFrame):
     are carried over.
     """
     import pytensor.tensor as pt
-    from pymc.model.fgraph import ModelObservedRV, fgraph_from_model, model_from_fgraph, model_observed_rv
+    from pymc.model.fgraph import ModelObservedRV, model_observed_rv
     from pymc.pytensorf import toposort_replace
 
-    initial = dict(model.rvs_to_initial_values)
-    model.rvs_to_initial_values = {rv: None for rv in initial}
-    try:
-        graph, _ = fgraph_from_model(model)
-    finally:
-        model.rvs_to_initial_values = initial
+    from workbench.modelfile import function_graph, model_from_graph
+
+    graph, initial = function_graph(model)
     nodes = {node.op.name: node for node in graph.toposort() if isinstance(node.op, ModelObservedRV)}
     swaps = []
     shared = _new_parameters(spec)
@@ -376,11 +373,7 @@ def relaxed_model(spec: Spec, model, frame: pd.DataFrame):
         expanded = _expanded_likelihood(spec, rv, value, shared, frame, pt)
         swaps.append((node.outputs[0], model_observed_rv(expanded, value, var, *node.op.dims)))
     toposort_replace(graph, swaps)
-    rebuilt = model_from_fgraph(graph, mutate_fgraph=True)
-    for rv, value in initial.items():
-        if value is not None:
-            rebuilt.set_initval(rebuilt[rv.name], value)
-    return rebuilt
+    return model_from_graph(graph, initial)
 
 
 def _free(name: str, dist, transform):

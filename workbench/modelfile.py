@@ -21,7 +21,9 @@ A model file is a Python file that defines
 
 :func:`design_from_file` returns a :class:`ModelFileDesign`, which answers
 the harness the way :class:`workbench.recipe.Design` does. Besides the
-user's assumptions, every model file gets the generic assumption
+user's assumptions, every model file gets the automatic assumptions that
+:mod:`workbench.automatic` reads from its likelihoods and its table (a key
+the user declares replaces the automatic one) and the generic assumption
 ``predictions``: posterior predictive checks of the mean, sd, minimum and
 maximum of each observed variable (and the share of zeros for counts).
 
@@ -776,13 +778,7 @@ def with_data_containers(model):
         outcomes a compiled sampler can swap (see :func:`container_names`).
     """
     import pytensor
-    from pymc.model.fgraph import (
-        ModelObservedRV,
-        fgraph_from_model,
-        model_from_fgraph,
-        model_named,
-        model_observed_rv,
-    )
+    from pymc.model.fgraph import ModelObservedRV, model_named, model_observed_rv
     from pymc.pytensorf import toposort_replace
     from pytensor.compile.sharedvalue import SharedVariable
     from pytensor.graph.basic import Constant
@@ -790,13 +786,7 @@ def with_data_containers(model):
     names = container_names(model)
     if all(isinstance(model.rvs_to_values[rv], SharedVariable) for rv in model.observed_RVs):
         return model
-    # The function-graph form refuses custom initial values; set them again afterwards.
-    initial = dict(model.rvs_to_initial_values)
-    model.rvs_to_initial_values = {rv: None for rv in initial}
-    try:
-        graph, _ = fgraph_from_model(model)
-    finally:
-        model.rvs_to_initial_values = initial
+    graph, initial = function_graph(model)
     swaps = []
     for node in graph.toposort():
         if not isinstance(node.op, ModelObservedRV):
@@ -809,6 +799,30 @@ def with_data_containers(model):
         named = model_named(container, name, *node.op.dims)
         swaps.append((node.outputs[0], model_observed_rv(rv, named, node.op.name, *node.op.dims)))
     toposort_replace(graph, swaps)
+    return model_from_graph(graph, initial)
+
+
+def function_graph(model):
+    """PyMC's function-graph form of ``model`` and its custom initial values.
+
+    The function-graph form refuses custom initial values: they are left out
+    here and set again by :func:`model_from_graph`.
+    """
+    from pymc.model.fgraph import fgraph_from_model
+
+    initial = dict(model.rvs_to_initial_values)
+    model.rvs_to_initial_values = {rv: None for rv in initial}
+    try:
+        graph, _ = fgraph_from_model(model)
+    finally:
+        model.rvs_to_initial_values = initial
+    return graph, initial
+
+
+def model_from_graph(graph, initial: dict):
+    """The model of a (changed) function graph, with the initial values of :func:`function_graph`."""
+    from pymc.model.fgraph import model_from_fgraph
+
     rebuilt = model_from_fgraph(graph, mutate_fgraph=True)
     for rv, value in initial.items():
         if value is not None:
