@@ -162,7 +162,7 @@ def test_binary_binomial_and_flat_location_are_unchecked(tmp_path):
                 p = pm.Beta("p", 1, 1)
                 pm.Binomial("y", n=1, p=p, observed=data["y"].to_numpy())
                 m = pm.Normal("m", 2, 1)
-                pm.Normal("z", m, 1.0, observed=data["z"].to_numpy())
+                pm.Normal("z", m, pm.HalfNormal("s", 1.0), observed=data["z"].to_numpy())
             return model
         """, TABLE)
     assert "binary" in found["dispersion:y"]
@@ -194,7 +194,8 @@ def test_a_declared_key_replaces_the_automatic_assumption(tmp_path):
         def build_model(data):
             with pm.Model() as model:
                 a = pm.Normal("a", 2, 1)
-                pm.Normal("z", a + data["x"].to_numpy(), 1.0, observed=data["z"].to_numpy())
+                pm.Normal("z", a + data["x"].to_numpy(), pm.HalfNormal("s", 1.0),
+                          observed=data["z"].to_numpy())
             return model
         """)
     design = modelfile.ModelFileDesign(path)
@@ -217,3 +218,18 @@ def test_design_with_automatic_relaxations_crosses_a_process_boundary_as_plain_d
     assert {rv.name for rv in model.free_RVs} == base | {"site_offset_sd", "site_offset_sd_z"}
     assert model["site_offset_sd_z"].eval().shape == (6,)
     assert np.isfinite(model.compile_logp()(model.initial_point()))
+
+
+def test_a_known_measurement_error_gets_no_tail_or_scale_relaxation(tmp_path):
+    # Eight schools: each estimate's standard error is given (Rubin 1981).
+    found = _derived(tmp_path, """
+        import pymc as pm
+        def build_model(data):
+            with pm.Model() as model:
+                mu = pm.Normal("mu", 0, 5)
+                pm.Normal("z", mu + data["x"].to_numpy(), data["z"].to_numpy() / 10,
+                          observed=data["z"].to_numpy())
+            return model
+        """, TABLE)
+    assert "given by the data" in found["tails:z"]
+    assert "given by the data" in found["constant_scale:z"]

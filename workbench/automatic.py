@@ -255,12 +255,24 @@ def _not_applicable(kind, family, rv, model, frame, fitted) -> str:
         if trials.size and np.max(trials) <= 1:
             return (f"{rv.name} is binary (one trial per row): a single trial carries no "
                     f"variation beyond the binomial")
+    if kind in (TAILS, CONSTANT_SCALE) and not _estimated(_parameters(rv)[-1], model):
+        # A scale given by the table is a known measurement error (a meta-analysis's
+        # standard errors): its shape and size are the data provider's, not the model's.
+        return f"the scale of {rv.name} is given by the data (a known error), not estimated"
     if kind == CONSTANT_SCALE:
         location = fitted.prior_location(frame, rv.name, model)
         if location is None or np.ndim(location) == 0 or np.size(location) < 3 \
                 or np.ptp(location) <= 1e-12 * max(1.0, float(np.max(np.abs(location)))):
             return f"the fitted location of {rv.name} is the same in every row"
     return ""
+
+
+def _estimated(expression, model) -> bool:
+    """Whether ``expression`` depends on a free variable of ``model``."""
+    from pytensor.graph.traversal import ancestors
+
+    free = set(model.free_RVs)
+    return any(var in free for var in ancestors([expression]))
 
 
 def _label_columns(model, frame: pd.DataFrame, build, taken: set[str]) -> list[Spec]:
