@@ -165,7 +165,8 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
 
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
     """Stacked cumulative shares of the outcomes over age against the cohorts."""
-    return cohorts.figure(data, options["family"], posterior, "share ended (stacked by outcome)")
+    return cohorts.figure(data, options["family"], posterior, "share ended (stacked by outcome)",
+                          predictive=predictive)
 
 
 # --- demo scenario -----------------------------------------------------------------------------

@@ -768,11 +768,22 @@ def dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 # --- figure -------------------------------------------------------------------------------------------
 
 
+# Seed of the replicated cohorts drawn for the figure's intervals: the same
+# fit always gives the same figure.
+FIGURE_SEED = 20
+
+
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict, draws: int = 200):
-    """Stacked stage shares by cohort age: observed (pooled over cohorts) against the fitted chain."""
+    """Stacked stage shares by cohort age: observed (pooled over cohorts) against the fitted chain.
+
+    Bands are the 90% interval of the fitted shares; each observed point
+    carries the 90% interval of the same pooled share in replicated cohorts
+    (every cohort's starting units moved through the fitted chain, each
+    unit on its own, as the story says) and is marked where it falls outside.
+    """
     import matplotlib.pyplot as plt
 
-    from workbench.report.plots import INK
+    from workbench.report import plots
 
     stages = data.extra["stages"]
     cohort, age, n = cohort_states(data)
@@ -782,34 +793,60 @@ def figure(data: Dataset, options: dict, posterior: dict, predictive: dict, draw
     tg = np.asarray(posterior["transition_group"], dtype=float)
     pick = np.linspace(0, tg.shape[0] - 1, min(draws, tg.shape[0])).astype(int)
     tg = tg[pick]
+    rng = np.random.default_rng(FIGURE_SEED)
     fitted = np.zeros((len(pick), ages.size, len(stages)))
+    replicated = np.zeros_like(fitted)
     observed_mix = np.zeros((ages.size, len(stages)))
     for row in np.flatnonzero((age == 0) & (n.sum(axis=1) > 0)):
         rows = np.flatnonzero(cohort == cohort[row])
+        seen = set(age[rows].tolist())
         share = np.broadcast_to(n[row] / n[row].sum(), (len(pick), len(stages)))
         m = tg[:, group_of[cohort[row]]]
+        moved = np.broadcast_to(np.eye(len(stages)), m.shape)  # chain over a periods, from each stage
         for a in range(age[rows].max() + 1):
             fitted[:, a] += n[row].sum() * share
+            if a in seen:
+                replicated[:, a] += _units_moved(rng, n[row], moved)
             share = np.einsum("ds,dst->dt", share, m)
+            moved = np.einsum("dsu,dut->dst", moved, m)
         observed_mix[age[rows]] += n[rows]
     fitted /= fitted.sum(axis=-1, keepdims=True)
-    observed_mix /= observed_mix.sum(axis=-1, keepdims=True)
+    seen_ages = observed_mix.sum(axis=-1) > 0
+    observed_mix /= np.where(seen_ages, observed_mix.sum(axis=-1), 1.0)[:, None]
+    replicated = np.cumsum(replicated[:, seen_ages] / np.maximum(replicated[:, seen_ages].sum(-1, keepdims=True), 1.0),
+                           axis=-1)
     lo, mid, hi = np.percentile(np.cumsum(fitted, axis=-1), [5, 50, 95], axis=0)
     stacked = np.cumsum(observed_mix, axis=-1)
     tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.1, 0.9, len(stages))]
     fig, ax = plt.subplots(figsize=(6.4, 3.8))
+    dodge = (np.arange(len(stages) - 1) - (len(stages) - 2) / 2) * 0.008 * max(ages[-1], 1)
+    outside = total = 0
     for j, name in enumerate(stages[:-1]):
         ax.fill_between(ages, lo[:, j], hi[:, j], color=tones[j], alpha=0.3, lw=0)
         ax.plot(ages, mid[:, j], color=tones[j], lw=1.6, label=f"up to {name} (fitted)")
-        ax.plot(ages, stacked[:, j], "o", mfc="none", color=tones[j], ms=5)
-    ax.plot([], [], "o", mfc="none", color=INK, label="observed (all cohorts)")
+        out, shown = plots.predictive_intervals(ax, ages[seen_ages] + dodge[j], stacked[seen_ages, j],
+                                                replicated[:, :, j], colour=tones[j], labelled=False)
+        outside, total = outside + out, total + shown
+    handles, _ = ax.get_legend_handles_labels()
+    handles += plots.interval_legend(outside, total)
+    handles[-2].set_label("observed (all cohorts)")
     ax.set_ylim(0, 1.02)
     ax.set_xlabel("periods since the cohort's first period")
     ax.set_ylabel("share of units (stacked by stage)")
     ax.spines[["top", "right"]].set_visible(False)
-    ax.legend(fontsize=8, frameon=False, loc="upper left", bbox_to_anchor=(1.0, 1.0))
+    plots.outside_legend(ax, handles=handles)
     fig.tight_layout()
     return fig
+
+
+def _units_moved(rng: np.random.Generator, start: np.ndarray, moved: np.ndarray) -> np.ndarray:
+    """Stage counts (draws, S) of ``start`` units (S,) each moved by ``moved`` (draws, S, S)."""
+    out = np.zeros(moved.shape[::2])
+    for s, units in enumerate(np.asarray(start, dtype=np.int64)):
+        if units > 0:
+            p = np.clip(moved[:, s], 0.0, None)
+            out += rng.multinomial(units, p / p.sum(axis=-1, keepdims=True))
+    return out
 
 
 # --- demo scenario --------------------------------------------------------------------------------------

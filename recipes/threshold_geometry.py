@@ -274,13 +274,16 @@ def _relaxation(parameter, meaning, null, negligible, planted):
 
 # --- report figure and demo scenario -------------------------------------------
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
-    """Success rate by distance: observed against the posterior predictive band."""
+    """Success share by distance: the fitted success probability's band, and each
+    row's observed share with the 90% interval of its replicated shares."""
     from workbench.report import plots
 
-    rate = predictive["y"] / data["attempts"]
+    observed = data["successes"] / data["attempts"]
+    rate = predictive["y"] / data["attempts"] if "y" in predictive else None
+    fitted = posterior.get("p")
     fig = plots.predictive_by_covariate(
-        data["distance"], data["successes"] / data["attempts"], None, rate,
-        "distance", "share of attempts that succeed")
+        data["distance"], observed, None, rate, "distance", "share of attempts that succeed",
+        fitted=None if fitted is None else np.asarray(fitted).reshape(-1, data.rows))
     return fig
 
 

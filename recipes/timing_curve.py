@@ -132,7 +132,8 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
 
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
     """Cumulative share with the event over age: fitted curve and band against the cohorts."""
-    return cohorts.figure(data, options["family"], posterior, "share with the event")
+    return cohorts.figure(data, options["family"], posterior, "share with the event",
+                          predictive=predictive)
 
 
 # --- demo scenario ---------------------------------------------------------------------------

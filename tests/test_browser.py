@@ -142,6 +142,19 @@ def test_every_figure_is_visible_with_a_size_once_its_fold_is_open(run_folder, v
     v.page.screenshot(path=artifact("report-desktop.png"), full_page=True)
 
 
+def test_fit_and_leave_one_out_sections_say_what_each_point_and_term_is(run_folder, visit):
+    v = visit(run_folder / "report.html")
+    v.page.evaluate("() => document.querySelectorAll('details').forEach(d => d.open = true)")
+    fit = v.page.locator("#fit figcaption").first.inner_text()
+    assert "each point with the 90% interval of its replicated values" in fit
+    loo = v.page.locator("#loo").inner_text()
+    # The throwing table has one row per distance: PSIS-LOO leaves out a distance.
+    assert "Pareto k of each distance in PSIS-LOO (11 distances" in loo
+    assert "distance has a high Pareto k" in loo or "Distances with high Pareto k: distance " in loo
+    assert "numbered from 1" not in loo
+    assert v.page.locator("#loo img").first.is_visible()
+
+
 # --- order and links -------------------------------------------------------------------
 
 

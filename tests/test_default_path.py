@@ -1,7 +1,8 @@
 """What a user runs with default settings: where fits run, and scripts as written.
 
-Relaxed models run in this process unless helper processes pay for their
-start-up; when they do (or ``--workers N`` asks), every built-in recipe's
+Relaxed models run in this process, shared with one helper process started
+before the base fit when a second core is free, or on more helpers when they
+pay for their start-up; on helpers (or when ``--workers N`` asks), every built-in recipe's
 design travels to spawned processes as plain data, and a user's script with
 no ``if __name__ == "__main__":`` guard is not run again inside them.
 """
@@ -85,11 +86,28 @@ def test_every_recipe_fits_its_relaxations_on_spawned_processes(name, demo_table
     assert relaxed, "no relaxed model's evidence reached the summary"
 
 
+@pytest.mark.slow
+def test_the_default_path_gives_what_one_process_gives(demo_tables, tmp_path):
+    # Default workers: the early helper shares the relaxed models; each model's
+    # seed is its own, so the verdicts and numbers match a single process's.
+    path, options = demo_tables["threshold-geometry"]
+    sets = [a for k, v in options.items() for a in ("--set", f"{k}={v}")]
+    summaries = []
+    for extra in ([], ["--workers", "1"]):
+        out = tmp_path / f"run{len(summaries)}"
+        code = main(["check", "threshold-geometry", "--data", str(path), *sets, *TINY, *extra,
+                     "--quiet", "--out", str(out), "--history", str(tmp_path / "h.sqlite")])
+        assert code == 0
+        summaries.append(json.loads((out / "summary.json").read_text()))
+    assert summaries[0]["assumptions"] == summaries[1]["assumptions"]
+    assert summaries[0]["parameters"] == summaries[1]["parameters"]
+
+
 # --- a user's script, as written ------------------------------------------------------------
 
 
 @pytest.mark.slow
-def test_script_without_main_guard_runs_once_with_helper_processes(demo_tables, tmp_path):
+def test_script_without_main_guard_runs_once_on_the_default_path(demo_tables, tmp_path):
     path, options = demo_tables["stage-transitions"]
     script = tmp_path / "my_check.py"
     script.write_text(textwrap.dedent(f"""\
@@ -98,7 +116,7 @@ def test_script_without_main_guard_runs_once_with_helper_processes(demo_tables, 
 
         print("script body ran")
         result = workbench.check("stage-transitions", {str(path)!r}, options={options!r},
-                                 settings=Settings(draws=100, tune=100, chains=2), workers=2,
+                                 settings=Settings(draws=100, tune=100, chains=2),
                                  out="run", history=False)
         print(sorted(result.verdicts()))
         """))

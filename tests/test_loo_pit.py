@@ -87,3 +87,13 @@ def test_an_outcome_without_one_value_per_loo_term_is_named_as_skipped(run):
     assert run.extras["loo_pit_skipped"] == []
     page = render(run, writers.summary(run))
     assert "No LOO-PIT for" not in page
+
+
+def test_summary_carries_each_variables_loo_pit_reading(run):
+    entry = writers.summary(run)["loo_pit"]["y"]
+    numbers = run.extras["loo_pit"]["y"]
+    assert entry["reading"] == loo_pit_reading(numbers, "successes")[0]
+    assert entry["label"] == "successes" and entry["values"] == run.data.rows
+    assert entry["mean"] == pytest.approx(float(np.mean(numbers["pit"])))
+    assert entry["variance"] == pytest.approx(float(np.var(numbers["pit"])))
+    assert entry["outside_band"] is numbers["outside"] and entry["band_level"] == LEVEL

@@ -21,6 +21,7 @@ from conftest import FUNNEL
 from workbench import modelfile, registry
 from workbench.cli import main
 from workbench.errors import ModelFileError
+from workbench.wording import count
 
 FILES = Path(__file__).parent / "model_files"
 BROKEN = FILES / "broken"
@@ -126,6 +127,75 @@ def test_centred_eight_schools_diverges_at_small_tau_and_is_told_to_non_centre(c
 def test_non_centred_eight_schools_computation_holds(non_centred):
     # The non-centred form removes the funnel (Betancourt and Girolami 2015).
     assert assumption(non_centred, "computation")["verdict"] == "holds"
+
+
+# --- eight schools: the non-centred form, fitted -----------------------------------------
+
+# "Nearly all" divergences gone: the non-centred form at the default target
+# 0.8 keeps a mild curvature that makes a few draws diverge with no pattern.
+# Measured through the harness at the FUNNEL settings (8 chains of 1000),
+# seeds 1-8: 25 to 356 divergent draws before, 3 to 10 after (at most 0.125%
+# of draws); the bound below is twice that.
+REVISED_DIVERGENT_SHARE = 0.0025
+
+
+def revision(folder: Path) -> dict:
+    [only] = summary(folder)["revisions"]
+    return only
+
+
+def test_centred_eight_schools_is_refitted_in_the_non_centred_form(centred):
+    r = revision(centred)
+    assert r["assumption"] == "computation"
+    assert r["change"] == "theta = mu + tau * theta_z with theta_z ~ Normal(0, 1)"
+    assert r["before"]["verdict"] == assumption(centred, "computation")["verdict"]
+    assert set(r["before"]) >= {"divergences", "min_ess_bulk", "min_ess_tail", "max_rhat"}
+    assert set(r["after"]) >= {"divergences", "min_ess_bulk", "min_ess_tail", "max_rhat", "verdict"}
+
+
+def test_the_revision_removes_nearly_all_divergences_and_mixes_better(centred):
+    # Betancourt and Girolami (2015): the non-centred form has no funnel.
+    r = revision(centred)
+    draws = FUNNEL.chains * FUNNEL.draws
+    assert r["before"]["divergences"] > 0
+    assert r["after"]["divergences"] < r["before"]["divergences"]
+    assert r["after"]["divergences"] <= REVISED_DIVERGENT_SHARE * draws
+    assert r["after"]["min_ess_bulk"] > r["before"]["min_ess_bulk"]
+    assert r["after"]["verdict"] != "broken" and r["fixed"] is True
+
+
+def test_the_revised_posterior_of_mu_and_tau_agrees_with_the_non_centred_model_file(centred, non_centred):
+    # Two fits of the same posterior (the change of variables is exact): their
+    # means differ by Monte Carlo error only, MCSE = sd / sqrt(bulk ESS).
+    revised = revision(centred)["agreement"]["parameters"]
+    reference = summary(non_centred)["parameters"]
+    for name in ("mu", "tau"):
+        a, b = revised[name], reference[name]
+        mcse = np.hypot(a["after_sd"] / np.sqrt(a["after_ess_bulk"]), b["sd"] / np.sqrt(b["ess_bulk"]))
+        assert abs(a["after_mean"] - b["mean"]) < MCSE_MULTIPLE * mcse, name
+
+
+def test_the_advice_says_what_the_fitted_revision_showed(centred):
+    advice = assumption(centred, "computation")["advice"]
+    r = revision(centred)
+    assert advice.startswith("Refitted with theta = mu + tau * theta_z")
+    assert f"divergences from {r['before']['divergences']} to {r['after']['divergences']}" in advice
+    assert ("adopt it" if r["agreement"]["agree"] else "read its estimates") in advice
+
+
+def test_the_report_shows_the_revision_under_computation(centred):
+    page = (centred / "report.html").read_text()
+    fold = page.split('id="a-computation"')[1].split("</article>")[0]
+    section = fold.split('data-check="revision"')[1].split("</div>")[0]
+    r = revision(centred)
+    assert "Revised" in section and "As written" in section
+    before, after = count(r["before"]["divergences"]), count(r["after"]["divergences"])
+    assert f'<td class="n">{before}</td><td class="n">{after}</td>' in section
+    assert "theta_z ~ Normal(0, 1)" in section
+
+
+def test_a_healthy_model_file_has_no_revision(non_centred):
+    assert summary(non_centred)["revisions"] == []
 
 
 # --- full reports with and without the optional parts ---------------------------------

@@ -71,6 +71,41 @@ def test_divergences_that_do_not_crowd_the_neck_say_nothing_about_a_funnel():
     assert verdicts.judge(funnel(-2.6, 0.3)).level == 0
 
 
+def revised(after_verdict: str, shift: float, agree: bool) -> dict:
+    return {"change": "theta = mu + tau * theta_z with theta_z ~ Normal(0, 1)",
+            "before": {"divergences": 40, "min_ess_bulk": 250.0, "min_ess_tail": 150.0, "max_rhat": 1.04,
+                       "verdict": "broken"},
+            "after": {"divergences": 0, "min_ess_bulk": 3900.0, "min_ess_tail": 3800.0, "max_rhat": 1.002,
+                      "verdict": after_verdict},
+            "agreement": {"threshold": 0.25, "z": 3.0, "agree": agree,
+                          "largest": {"parameter": "tau", "shift": shift, "noise": 0.02}},
+            "fixed": after_verdict != "broken",
+            "remaining": {"sentence": "" if after_verdict == "holds" else "Divergences remain.",
+                          "advice": ""}}
+
+
+def with_revision(record):
+    f = funnel(-3.5, 0.05)
+    f.numbers["revision"] = record
+    return verdicts.judge(f)
+
+
+def test_a_revision_that_ran_clean_and_agrees_is_advised_for_adoption():
+    judgement = with_revision(revised("holds", 0.1, True))
+    assert judgement.level == 2  # the model as written still has its funnel
+    assert judgement.advice.startswith("Refitted with theta = mu + tau * theta_z")
+    assert "divergences from 40 to 0" in judgement.advice and "adopt it" in judgement.advice
+
+
+def test_a_revision_whose_estimates_moved_says_the_centred_fit_was_biased():
+    assert "biased" in with_revision(revised("holds", 0.6, False)).advice
+
+
+def test_a_revision_still_broken_says_it_does_not_fix_it():
+    advice = with_revision(revised("broken", 0.1, True)).advice
+    assert "does not fix it" in advice and "Divergences remain." in advice
+
+
 def failures(reasons: dict):
     failed = sum(reasons.values())
     return Finding("implementation", "calibration_failures", "calibration:failures", failed / 200, None,

@@ -370,12 +370,12 @@ def relaxed_model(spec: Spec, model, frame: pd.DataFrame):
     are carried over.
     """
     import pytensor.tensor as pt
-    from pymc.model.fgraph import ModelObservedRV, model_observed_rv
+    from pymc.model.fgraph import ModelObservedRV, model_from_fgraph, model_observed_rv
     from pymc.pytensorf import toposort_replace
 
-    from workbench.modelfile import function_graph, model_from_graph
+    from workbench.revisions import model_graph, model_with_initial
 
-    graph, initial = function_graph(model)
+    graph, _, initial = model_graph(model)
     nodes = {node.op.name: node for node in graph.toposort() if isinstance(node.op, ModelObservedRV)}
     swaps = []
     shared = _new_parameters(spec)
@@ -385,7 +385,7 @@ def relaxed_model(spec: Spec, model, frame: pd.DataFrame):
         expanded = _expanded_likelihood(spec, rv, value, shared, frame, pt)
         swaps.append((node.outputs[0], model_observed_rv(expanded, value, var, *node.op.dims)))
     toposort_replace(graph, swaps)
-    return model_from_graph(graph, initial)
+    return model_with_initial(model_from_fgraph(graph, mutate_fgraph=True), initial)
 
 
 def _free(name: str, dist, transform):

@@ -243,7 +243,8 @@ class _Compiled:
         from workbench.engine import Sampler
 
         self.model = design.build(data)
-        self.sampler = Sampler(self.model)
+        # Many refits of one compiled model: nutpie's native wrappers pay.
+        self.sampler = Sampler(self.model, fits=None)
         self.free = [rv.name for rv in self.model.free_RVs]
         self._draws: dict[str, tuple] = {}
         self._logliks: dict[tuple, tuple] = {}

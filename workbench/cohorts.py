@@ -554,21 +554,24 @@ def cell_dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 # --- figure -----------------------------------------------------------------------------------
 
 
-def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int = 200):
+def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int = 200,
+           predictive: dict | None = None):
     """Cumulative share per outcome over age, stacked, fitted band against the data.
 
-    One panel per group (at most four). Points are each row's observed
-    cumulative shares (stacked over outcomes, sized by exposed); lines and
-    bands are the posterior median and 90% interval of the stacked curves.
+    One panel per group (at most four). Lines and bands are the posterior
+    median and 90% interval of the stacked curves; points are each row's
+    observed cumulative shares (stacked over outcomes), each with the 90%
+    interval of its replicated shares when ``predictive`` holds the
+    replicated cell counts ``y``, and marked where it falls outside.
     """
     import matplotlib.pyplot as plt
 
-    from workbench.report.plots import FIT, INK
+    from workbench.report import plots
 
     outcomes = data.extra["outcomes"]
     k = len(outcomes)
     groups = data.labels["group"][:4]
-    fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 1.2, 3.6), squeeze=False)
+    fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 2.6, 3.6), squeeze=False)
     scale = np.asarray(posterior["scale_group"], dtype=float)
     s = scale.shape[0]
     pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
@@ -579,26 +582,41 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
     rel = grid / data.extra["age_ref"]
     observed_share = counts_of(data) / data["exposed"][:, None]
-    tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.15, 0.85, k)] if k > 1 else [FIT]
+    replicated = None
+    if predictive and "y" in predictive:
+        y = np.asarray(predictive["y"], dtype=float)
+        y = y.reshape(y.shape[0], len(data.labels["cohort"]), -1)
+        replicated = np.cumsum(cumulative_counts(data, y) / data["exposed"][None, :, None], axis=-1)
+    tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.15, 0.85, k)] if k > 1 else [plots.FIT]
+    # Stacked outcomes share their ages: their whiskers stand slightly apart.
+    dodge = (np.arange(k) - (k - 1) / 2) * 0.008 * grid[-1]
+    outside = total = 0
     for g, ax in enumerate(axes[0]):
         f = curves.cdf(family, rel[None, :, None], scale[:, None, g, :], shape[:, None, :])
         stacked = np.cumsum(share[:, None, :] * f ** power[:, None, None], axis=-1)
         lo, mid, hi = np.percentile(stacked, [5, 50, 95], axis=0)
         rows = data["group"] == g
-        size = 8 + 40 * data["exposed"][rows] / data["exposed"].max()
         obs = np.cumsum(observed_share[rows], axis=-1)
         for j in range(k):
             label = " + ".join(outcomes[: j + 1]) if k > 1 else "fitted"
             ax.fill_between(grid, lo[:, j], hi[:, j], color=tones[j], alpha=0.25, lw=0)
             ax.plot(grid, mid[:, j], color=tones[j], lw=1.6, label=f"{label} (median, 90%)")
-            ax.scatter(data["age"][rows], obs[:, j], s=size, facecolor="none",
-                       edgecolor=tones[j] if k > 1 else INK, lw=0.9)
+            point = tones[j] if k > 1 else plots.INK
+            if replicated is None:
+                ax.plot(data["age"][rows], obs[:, j], "o", ms=4, mfc="none", mec=point, mew=0.9)
+                continue
+            out, shown = plots.predictive_intervals(ax, data["age"][rows] + dodge[j], obs[:, j],
+                                                    replicated[:, rows, j], colour=point, labelled=False)
+            outside, total = outside + out, total + shown
         ax.set_ylim(0, 1.02)
         ax.set_xlabel("age")
         ax.set_title(groups[g] if len(data.labels["group"]) > 1 else "", fontsize=10)
         ax.spines[["top", "right"]].set_visible(False)
     axes[0][0].set_ylabel(ylabel)
-    axes[0][-1].legend(fontsize=8, frameon=False, loc="lower right")
+    handles, _ = axes[0][-1].get_legend_handles_labels()
+    if replicated is not None:
+        handles += plots.interval_legend(outside, total)
+    plots.outside_legend(axes[0][-1], handles=handles)
     fig.tight_layout()
     return fig
 

@@ -440,11 +440,12 @@ def pointwise_figure(doc: dict):
         d = np.asarray(point["elpd"][row["design"]]) - base
         colour = colours[i % len(colours)]
         ax.plot(x[order], d[order], markers[i % len(markers)], ms=4.5, color=colour, alpha=0.85,
-                label=f"{row['design']} minus {reference} (sum {d.sum():+.1f})")
+                label=plots.wrap_text(f"{row['design']} minus {reference} (sum {d.sum():+.1f})", 48))
     ax.set_xlabel(point["covariate"])
     ax.set_ylabel("pointwise elpd difference")
-    ax.set_title(f"above 0: predicted better than by {reference}", fontsize=8.5, loc="left")
-    ax.legend(frameon=False, fontsize=7.5)
+    ax.set_title(plots.wrap_text(f"above 0: predicted better than by {reference}"), fontsize=8.5, loc="left")
+    # Below the axes: design labels are long and the legend must not cover points or be cut.
+    ax.legend(frameon=False, fontsize=7.5, loc="upper left", bbox_to_anchor=(0.0, -0.2), borderaxespad=0.0)
     return fig
 
 

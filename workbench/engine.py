@@ -76,7 +76,9 @@ def start_at(rv, value, dims: tuple = ()) -> None:
     model = pm.modelcontext(None)
     value = pt.reshape(value, tuple(len(model.coords[d]) for d in dims))
     try:
-        allowed = bool(np.all(np.isfinite(pm.logp(rv, value).eval())))
+        # A finiteness test of one vector: the fast-compiling mode takes a
+        # tenth of the default's compile time (0.07 s against 0.15-4.9 s).
+        allowed = bool(np.all(np.isfinite(pm.logp(rv, value).eval(mode="FAST_COMPILE"))))
     except Exception:  # a prior PyMC cannot evaluate there keeps its own start
         allowed = False
     if allowed:
@@ -84,19 +86,30 @@ def start_at(rv, value, dims: tuple = ()) -> None:
 
 
 class Sampler:
-    """One compiled model; sample it again and again with new observed data."""
+    """One compiled model; sample it again and again with new observed data.
 
-    def __init__(self, model):
-        import nutpie
+    ``fits`` is how many fits the caller expects on this compiled model
+    (``None``: many, as in calibration); with ``settings`` it picks nutpie's
+    native C wrappers or the light path (:mod:`workbench.compiling`).
+    """
+
+    def __init__(self, model, fits: int | None = 1, settings: "Settings | None" = None):
+        from workbench import compiling
 
         self.model = model
-        start = time.perf_counter()
+        settings = settings or Settings()
         with warnings.catch_warnings(), interrupts_kept():
             warnings.simplefilter("ignore")
-            self.compiled = nutpie.compile_pymc_model(model, initial_points=_STARTS.get(model))
-        self.compile_seconds = time.perf_counter() - start
-        # shared_data is keyed by opaque ids; the container names sit on the variables.
-        self.data_names = {var.name for var in self.compiled.shared_var_keys}
+            if fits is None:
+                made = compiling.native(model, _STARTS.get(model))
+            else:
+                made = compiling.choose(model, _STARTS.get(model), fits=fits,
+                                        draws_per_chain=settings.draws + settings.tune,
+                                        chains=settings.chains, cores=settings.cores)
+        self.compiled = made.model
+        self.path = made.path
+        self.compile_seconds = made.seconds
+        self.data_names = set(made.data_names)
         self.model_data_names = {var.name for var in model.data_vars}
 
     def with_data(self, observed: Mapping[str, np.ndarray]):
@@ -260,7 +273,7 @@ def fit(
     seeds = seed_stream(seed, "prior", "posterior", "posterior_predictive")
     if sampler is None:
         say(f"{label}: compiling")
-        sampler = Sampler(model)
+        sampler = Sampler(model, settings=settings)
     model = sampler.model
     if observed:
         with model:

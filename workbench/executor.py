@@ -1,6 +1,11 @@
 """Where independent fits run: this process, or helper processes when they pay.
 
-One rule decides, for relaxations and calibration alike: a helper process
+A check with two or more relaxed models starts one helper before its base
+fit (:data:`EARLY_HELPER_FITS`, :class:`workbench.harness.EarlyHelper`): on
+the light compile path this process samples on one core, so the helper's
+start-up costs nothing but the other core.
+
+Otherwise one rule decides, for relaxations and calibration alike: a helper process
 spends seconds of a core importing PyMC and compiling before its first fit,
 so helpers are started only when the work they would take off this process
 is worth more than their start-up. Helpers are spawned (not forked: the
@@ -33,6 +38,23 @@ WARM_COMPILE_SHARE = 0.5
 # (benchmarks/calibration_speed.py: 18 s for two on 2 cores), so helpers pay
 # off only for work of at least twice that.
 HELPERS_WORTH_SECONDS = 40.0
+
+
+# A check starts one helper process before its base fit when it has at least
+# this many relaxed models to fit: the helper imports while the base model
+# compiles and samples (on the light path this process uses one core), then
+# takes relaxed models off this process's queue.
+EARLY_HELPER_FITS = 2
+
+
+def warm_up() -> int:
+    """Run in a fresh helper: import what a fit needs, so its first fit starts at once."""
+    import nutpie  # noqa: F401
+    import pymc  # noqa: F401
+
+    from workbench import harness  # noqa: F401
+
+    return os.getpid()
 
 
 def cores() -> int:

@@ -9,15 +9,17 @@ from __future__ import annotations
 import os
 import platform
 import sys
+import threading
 import time
 import warnings
-from concurrent.futures import as_completed
+from collections import deque
+from concurrent.futures import Future, as_completed
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from importlib import metadata
 from typing import Any, Callable
 
-from workbench import checks, engine, estimates, executor, interrupts, verdicts
+from workbench import checks, engine, estimates, executor, interrupts, revisions, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -100,7 +102,7 @@ def fit_design(design, data, seed: int, settings: engine.Settings, relaxation=No
     fresh = design.build(data, relaxation)
     key = (design.key(), getattr(relaxation, "parameter", None), _layout(fresh))
     if key not in _COMPILED:
-        _COMPILED[key] = (fresh, engine.Sampler(fresh))
+        _COMPILED[key] = (fresh, engine.Sampler(fresh, settings=settings))
         return engine.fit(fresh, seed, settings, sampler=_COMPILED[key][1], **kwargs)
     model, sampler = _COMPILED[key]
     values = {v.name: v.get_value() for v in fresh.data_vars}
@@ -133,9 +135,16 @@ def relaxation_workers(fits: int, settings: engine.Settings, main: engine.Fit | 
     return executor.fits_worth_helpers(fits, compile_seconds, main.seconds, settings.chains)
 
 
+def relaxation_names(design, data) -> list[str]:
+    """The relaxed models a check fits: declared, applying to the options, informed by the table."""
+    return list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
+                              if a.relaxation is not None and a.relaxation.applies_to(design.options)
+                              and not a.uninformed(data)))
+
+
 def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers: int | None,
                     say: Callable[[str], None], fitter=None, progress: bool = False,
-                    main: engine.Fit | None = None) -> dict[str, engine.Fit]:
+                    main: engine.Fit | None = None, helper=None) -> dict[str, engine.Fit]:
     """Fit every declared relaxation, in this process or in helper processes.
 
     ``workers=None`` chooses by :func:`relaxation_workers` from the base fit
@@ -181,6 +190,101 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     return {n: done[n] for n in names}
 
 
+class EarlyHelper:
+    """One helper process started before the base fit, sharing the relaxed models.
+
+    On the light compile path (:mod:`workbench.compiling`) this process
+    samples on one core; the helper imports on the other while the base
+    model fits, then both take relaxed models from one queue, this process
+    from the front and the helper from the back. Seeds belong to the models,
+    so the results do not depend on who fitted what.
+    """
+
+    def __init__(self):
+        self.pool = executor.process_pool(1)
+        with executor.user_script_hidden():
+            self.ready = self.pool.submit(executor.warm_up)
+
+    @staticmethod
+    def wanted(fits: int, workers: int | None, relax: bool) -> bool:
+        return (relax and workers is None and executor.cores() >= 2
+                and fits >= executor.EARLY_HELPER_FITS)
+
+    def pays(self, main: engine.Fit | None) -> bool:
+        # A base fit on nutpie's native wrappers already sampled on every
+        # core; a fit read from a cache says its relaxations are cached too.
+        sampler = getattr(main, "sampler", None)
+        return sampler is not None and getattr(sampler, "path", "") == "light"
+
+    def share(self, names: list[str], here: Callable, there: Callable, advance: Callable) -> dict:
+        queue = deque(names)
+        lock = threading.Lock()
+        done: dict[str, engine.Fit] = {}
+        failures: list[BaseException] = []
+        idle = threading.Event()
+
+        def give(started=None) -> None:
+            if started is not None and started.exception() is not None:
+                failures.append(started.exception())
+            with lock:
+                name = queue.pop() if queue and not failures else None
+            if name is None:
+                idle.set()
+                return
+            try:
+                # The helper process exists (started by the warm-up), so no
+                # new process starts here and the main module stays as it is.
+                future = self.pool.submit(*there(name))
+            except BaseException as err:
+                with lock:
+                    queue.append(name)
+                failures.append(err)
+                idle.set()
+                return
+            future.add_done_callback(lambda f, n=name: received(n, f))
+
+        def received(name: str, future: Future) -> None:
+            try:
+                idata, seconds = future.result()
+            except BaseException:
+                # A helper that failed or died: this process fits the model.
+                with lock:
+                    queue.append(name)
+                    failures.append(RuntimeError("helper failed"))
+                idle.set()
+                return
+            with lock:
+                done[name] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{name}")
+            advance()
+            give()
+
+        def fit_here(name: str) -> None:
+            idata, seconds = here(name)
+            with lock:
+                done[name] = engine.Fit(idata, None, None, seconds, label=f"relaxed:{name}")
+            advance()
+
+        self.ready.add_done_callback(give)
+        while True:
+            with lock:
+                name = queue.popleft() if queue else None
+            if name is None:
+                break
+            fit_here(name)
+        if not self.ready.done():
+            # Everything was fitted here before the helper was ready.
+            idle.set()
+        idle.wait()
+        # Whatever a failed helper left behind is fitted here (an error in the
+        # model itself then surfaces in this process, as without a helper).
+        while queue:
+            fit_here(queue.popleft())
+        return {n: done[n] for n in names}
+
+    def close(self) -> None:
+        self.pool.shutdown(wait=False, cancel_futures=True)
+
+
 def run_check(
     design,
     data,
@@ -193,21 +297,32 @@ def run_check(
     say: Callable[[str], None] = lambda _: None,
     progress: bool = False,
     fitter: Callable[..., engine.Fit] | None = None,
+    revise: bool = True,
 ) -> CheckRun:
     """Fit the design, its relaxations and calibration; judge every assumption.
 
     ``fitter`` stands in for :func:`fit_design` (same arguments), e.g. a
-    :class:`workbench.fitcache.CachedFitter` that reuses stored fits.
+    :class:`workbench.fitcache.CachedFitter` that reuses stored fits. When
+    the main fit shows the funnel of a centred scale and ``revise`` is on,
+    the non-centred form is fitted too (:func:`workbench.revisions.revise`).
     """
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
-    seeds = engine.seed_stream(seed, "main", "relaxations")
-    main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
-                                  label=design.label(), say=say)
-    relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
-                              fitter, progress, main) if relax else {}
+    seeds = engine.seed_stream(seed, "main", "relaxations", "revisions")
+    helper = (EarlyHelper() if EarlyHelper.wanted(len(relaxation_names(design, data)), workers, relax)
+              else None)
+    try:
+        main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
+                                      label=design.label(), say=say)
+        revised = revisions.revise(design, data, main, seeds["revisions"], settings, fitter,
+                                   say) if revise else []
+        relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
+                                  fitter, progress, main, helper) if relax else {}
+    finally:
+        if helper is not None:
+            helper.close()
     calibration = calibrate() if calibrate else None
-    context = checks.Context(design, data, main, relaxed, calibration)
+    context = checks.Context(design, data, main, relaxed, calibration, revisions=revised)
     interrupts.raise_if_interrupted()
     say("running checks")
     # An assumption the table cannot inform is left unchecked, with the reason.
@@ -220,6 +335,9 @@ def run_check(
         context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))
     declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
     judged = verdicts.decide(declared, findings, uninformed)
+    context.extras["revisions"] = revised
+    for record in revised:
+        record["before"]["verdict"] = next(v.verdict for v in judged if v.key == record["assumption"])
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
                     context.extras, calibration, started, time.perf_counter() - start)
 

@@ -778,15 +778,22 @@ def with_data_containers(model):
         outcomes a compiled sampler can swap (see :func:`container_names`).
     """
     import pytensor
-    from pymc.model.fgraph import ModelObservedRV, model_named, model_observed_rv
+    from pymc.model.fgraph import (
+        ModelObservedRV,
+        model_from_fgraph,
+        model_named,
+        model_observed_rv,
+    )
     from pymc.pytensorf import toposort_replace
     from pytensor.compile.sharedvalue import SharedVariable
     from pytensor.graph.basic import Constant
 
+    from workbench.revisions import model_graph, model_with_initial
+
     names = container_names(model)
     if all(isinstance(model.rvs_to_values[rv], SharedVariable) for rv in model.observed_RVs):
         return model
-    graph, initial = function_graph(model)
+    graph, _, initial = model_graph(model)
     swaps = []
     for node in graph.toposort():
         if not isinstance(node.op, ModelObservedRV):
@@ -799,32 +806,4 @@ def with_data_containers(model):
         named = model_named(container, name, *node.op.dims)
         swaps.append((node.outputs[0], model_observed_rv(rv, named, node.op.name, *node.op.dims)))
     toposort_replace(graph, swaps)
-    return model_from_graph(graph, initial)
-
-
-def function_graph(model):
-    """PyMC's function-graph form of ``model`` and its custom initial values.
-
-    The function-graph form refuses custom initial values: they are left out
-    here and set again by :func:`model_from_graph`.
-    """
-    from pymc.model.fgraph import fgraph_from_model
-
-    initial = dict(model.rvs_to_initial_values)
-    model.rvs_to_initial_values = {rv: None for rv in initial}
-    try:
-        graph, _ = fgraph_from_model(model)
-    finally:
-        model.rvs_to_initial_values = initial
-    return graph, initial
-
-
-def model_from_graph(graph, initial: dict):
-    """The model of a (changed) function graph, with the initial values of :func:`function_graph`."""
-    from pymc.model.fgraph import model_from_fgraph
-
-    rebuilt = model_from_fgraph(graph, mutate_fgraph=True)
-    for rv, value in initial.items():
-        if value is not None:
-            rebuilt.set_initval(rebuilt[rv.name], value)
-    return rebuilt
+    return model_with_initial(model_from_fgraph(graph, mutate_fgraph=True), initial)

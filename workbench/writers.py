@@ -202,13 +202,44 @@ def summary(run) -> dict:
         "assumptions": [v.to_dict() for v in run.verdicts],
         "loo": {k: run.extras["loo"][k] for k in ("elpd", "se", "p_loo", "bad_pareto_k")}
         if "loo" in run.extras else None,
+        "loo_pit": loo_pit_readings(run),
         "calibration": run.calibration.to_dict() if run.calibration is not None else None,
         "parameters": run.extras.get("parameters", {}),
         "sampling": run.settings.to_dict(),
+        "revisions": [_revision(r) for r in run.extras.get("revisions", [])],
     }
     if "derived" in run.extras:
         doc["derived"] = run.extras["derived"]
     return clean(doc)
+
+
+def _revision(record: dict) -> dict:
+    """A revision as summary.json lists it: what changed, before and after, agreement."""
+    keys = ("assumption", "change", "design", "before", "after", "agreement", "fixed")
+    return {k: record[k] for k in keys}
+
+
+def loo_pit_readings(run) -> dict:
+    """The LOO-PIT reading of each observed variable, by variable name.
+
+    ``reading`` is ``fine``, ``too narrow``, ``too wide`` or ``shifted`` (see
+    :func:`workbench.rules.model_fit.loo_pit_reading`), with the values'
+    ``mean`` and ``variance`` (0.5 and 1/12 for a calibrated model), whether
+    the ECDF leaves its simultaneous band (``outside_band``, at ``band_level``)
+    and how many values there are.
+    """
+    from workbench.recipe import outcome_words
+    from workbench.rules.model_fit import loo_pit_reading
+
+    words = outcome_words(run.design)
+    out = {}
+    for name, numbers in (run.extras.get("loo_pit") or {}).items():
+        reading, sentence = loo_pit_reading(numbers, words.get(name, name))
+        out[name] = {"label": words.get(name, name), "reading": reading, "mean": numbers["mean"],
+                     "variance": numbers["variance"], "outside_band": numbers["outside"],
+                     "band_level": numbers["level"], "values": int(len(numbers["pit"])),
+                     "sentence": sentence}
+    return out
 
 
 def write_json(path: str | Path, doc: dict) -> Path:

@@ -26,6 +26,8 @@ class Context:
     fit         the main fit (:class:`workbench.engine.Fit`)
     relaxed     fits of the relaxed models, by relaxation parameter name
     calibration the calibration result when ``--sbc`` ran, else None
+    revisions   the revisions fitted (:func:`workbench.revisions.revise`), as
+                plain records
     """
 
     design: Any
@@ -34,6 +36,7 @@ class Context:
     relaxed: dict[str, Any] = field(default_factory=dict)
     calibration: Any = None
     extras: dict[str, Any] = field(default_factory=dict)
+    revisions: list[dict] = field(default_factory=list)
 
 
 def check(fn):

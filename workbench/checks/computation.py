@@ -101,15 +101,18 @@ SCALE_NAMES = {"LogTransform": "log", "LogOddsTransform": "logit", "Interval": "
 # --- summary numbers (what summary.json carries) -------------------------------
 
 
-def computation_summary(idata: xr.DataTree) -> dict:
+def computation_summary(idata: xr.DataTree, model=None) -> dict:
     """Sampler health in the numbers of ``summary.json``.
 
     Parameters
     ----------
     idata : xarray.DataTree
         A fit with ``posterior`` and ``sample_stats`` groups. R-hat and ESS
-        are taken over the free parameters: the variables of the
-        ``log_prior`` group when it is present, else every posterior variable.
+        are taken over the free parameters: those of ``model`` when given,
+        else the variables of the ``log_prior`` group when it is present,
+        else every posterior variable.
+    model : pymc.Model, optional
+        The fitted model.
 
     Returns
     -------
@@ -125,7 +128,7 @@ def computation_summary(idata: xr.DataTree) -> dict:
     """
     import arviz as az
 
-    posterior = _free_posterior(idata, None)
+    posterior = _free_posterior(idata, model)
     stats = idata["sample_stats"].to_dataset() if "sample_stats" in idata.children else xr.Dataset()
     return {
         "divergences": _count(stats, "diverging"),
@@ -325,14 +328,13 @@ def sampler_health(context: Context) -> list[Finding]:
     if fit is None or "posterior" not in fit.idata.children:
         return []
     idata, model = fit.idata, getattr(fit, "model", None)
-    free = _free_posterior(idata, model)
-    uncon, scales = unconstrained(free, model)
-    draws = elements(uncon, scales)
+    free, draws, findings = _located_divergences(fit)
+    revised = {r["scale"]: r for r in getattr(context, "revisions", ())}
+    for f in findings:
+        if f.kind == "funnel" and f.numbers["scale"] in revised:
+            # The revision the funnel's advice names, already fitted: the rule says how it went.
+            f.numbers["revision"] = revised[f.numbers["scale"]]
     stats = idata["sample_stats"].to_dataset() if "sample_stats" in idata.children else xr.Dataset()
-    findings = []
-    if "diverging" in stats:
-        diverging = np.asarray(stats["diverging"].transpose(*SAMPLE_DIMS).values, dtype=bool)
-        findings += _divergence_findings(idata, model, draws, diverging)
     findings.append(_rhat_finding(free))
     findings.append(_ess_finding(free))
     if "energy" in stats:
@@ -345,6 +347,38 @@ def sampler_health(context: Context) -> list[Finding]:
     if prior is not None:
         findings.append(_contraction_finding(draws, prior))
     return findings
+
+
+def _located_divergences(fit) -> tuple[xr.Dataset, Elements, list[Finding]]:
+    """Free posterior, its unconstrained elements, and the divergence findings of ``fit``."""
+    idata, model = fit.idata, getattr(fit, "model", None)
+    free = _free_posterior(idata, model)
+    uncon, scales = unconstrained(free, model)
+    draws = elements(uncon, scales)
+    stats = idata["sample_stats"].to_dataset() if "sample_stats" in idata.children else xr.Dataset()
+    if "diverging" not in stats:
+        return free, draws, []
+    diverging = np.asarray(stats["diverging"].transpose(*SAMPLE_DIMS).values, dtype=bool)
+    return free, draws, _divergence_findings(idata, model, draws, diverging)
+
+
+def funnel_of(fit) -> Finding | None:
+    """The ``funnel`` finding of a fit (None without a centred scale or divergences).
+
+    The same finding :func:`sampler_health` reports, without the other
+    diagnostics: the harness asks it first, to decide whether the revision
+    the funnel's advice names is worth fitting.
+    """
+    if fit is None or "posterior" not in fit.idata.children or "sample_stats" not in fit.idata.children:
+        return None
+    stats = fit.idata["sample_stats"]
+    # Most fits stop here, before any draw is transformed: too few divergences, or no centred scale.
+    if "diverging" not in stats or int(np.asarray(stats["diverging"].values, bool).sum()) < \
+            MIN_DIVERGENT_FOR_FUNNEL:
+        return None
+    if not centred_scales(getattr(fit, "model", None), fit.idata["posterior"].to_dataset()):
+        return None
+    return next((f for f in _located_divergences(fit)[2] if f.kind == "funnel"), None)
 
 
 def _finding(kind: str, value, detail: str, **numbers) -> Finding:

@@ -70,6 +70,43 @@ def loo_of(fit):
         return az.loo(idata, pointwise=True, var_name=name, log_weights=log_weights, pareto_k=k)
 
 
+def loo_terms(design, data, n_terms: int) -> tuple[str, list[str]]:
+    """What one pointwise LOO term leaves out, and a label for each term.
+
+    One term per table row: the unit is the recipe's covariate (``distance``)
+    and a term reads ``distance 3``, with its label columns when they have
+    several levels (``cohort c02, distance 4``). One term per level of a
+    label column (a multinomial cohort): the unit is that column
+    (``cohort``, ``cohort c02``). One term per step of a cohort from one
+    period to the next: ``step``, ``cohort c02, from period 3``. Otherwise
+    ``row`` and the term's number from 1 (``row 7``).
+    """
+    from workbench.wording import number
+
+    recipe = getattr(design, "recipe", None)
+    covariate = getattr(recipe, "covariate", None)
+    columns = getattr(data, "columns", {}) or {}
+    labels = getattr(data, "labels", {}) or {}
+    extra = getattr(data, "extra", {}) or {}
+    for name, levels in labels.items():
+        if len(levels) == n_terms and len(levels) > 1 and name in columns \
+                and np.asarray(columns[name]).size != n_terms:
+            return name, [f"{name} {level}" for level in levels]
+    if covariate and covariate in columns and np.asarray(columns[covariate]).size == n_terms:
+        values = np.asarray(columns[covariate], dtype=float)
+        words = [f"{covariate} {number(v)}" for v in values]
+        for name, levels in labels.items():
+            codes = np.asarray(columns.get(name, []))
+            if len(levels) > 1 and codes.size == n_terms:
+                words = [f"{name} {levels[int(c)]}, {w}" for c, w in zip(codes, words)]
+        return covariate, words
+    cohorts, periods = np.asarray(extra.get("step_cohort", [])), np.asarray(extra.get("step_period", []))
+    if "cohort" in labels and cohorts.size == n_terms and periods.size == n_terms:
+        return "step", [f"cohort {labels['cohort'][int(c)]}, from period {number(t)}"
+                        for c, t in zip(cohorts, periods)]
+    return "row", [f"row {i + 1}" for i in range(n_terms)]
+
+
 def loo_numbers(fit) -> dict:
     """The summary's ``loo`` section: elpd, se, p_loo and the rows with high k."""
     result = loo_of(fit)
@@ -89,12 +126,13 @@ def loo_numbers(fit) -> dict:
 def psis_loo(context: Context) -> list[Finding]:
     """A finding listing rows whose Pareto k exceeds the threshold."""
     numbers = loo_numbers(context.fit)
-    context.extras["loo"] = numbers
+    unit, labels = loo_terms(context.design, context.data, len(numbers["pareto_k"]))
+    context.extras["loo"] = {**numbers, "unit": unit, "labels": labels}
     bad = numbers["bad_pareto_k"]
-    rows = ", ".join(str(i + 1) for i in bad[:10]) + (" ..." if len(bad) > 10 else "")
+    rows = ", ".join(labels[i] for i in bad[:10]) + (" ..." if len(bad) > 10 else "")
     detail = (
         f"PSIS-LOO elpd {numbers['elpd']:.1f} (SE {numbers['se']:.1f}), p_loo {numbers['p_loo']:.1f}; "
-        + (f"{len(bad)} row(s) with Pareto k above {numbers['k_threshold']:.2f}: {rows}."
+        + (f"{len(bad)} {unit}(s) with Pareto k above {numbers['k_threshold']:.2f}: {rows}."
            if bad else f"every Pareto k is below {numbers['k_threshold']:.2f}.")
     )
     return [

@@ -19,11 +19,11 @@ from __future__ import annotations
 import numpy as np
 
 from workbench.checks import Context, check
-from workbench.checks.loo import loo_of
+from workbench.checks.loo import loo_of, loo_terms
 from workbench.checks.predictive import discrepancies
 from workbench.findings import COMPUTATION, Finding
 from workbench.statistics import predictive_p_value
-from workbench.wording import number, p_equals
+from workbench.wording import p_equals
 
 # The rows named as carrying a relaxation's gain: the largest positive
 # contributions, at most this many, stopping once they hold this share of the
@@ -39,30 +39,8 @@ def pointwise_gain(expanded, original) -> np.ndarray:
 
 
 def term_labels(design, data, n_terms: int) -> list[str]:
-    """A label for each pointwise LOO term in the table's words.
-
-    One term per table row: the row's covariate (``distance 3``), with its
-    label columns when they have several levels (``cohort c02, age 4``). One
-    term per level of a label column: that level (``cohort c02``). Otherwise
-    the term's number from 1 (``row 7``).
-    """
-    recipe = getattr(design, "recipe", None)
-    covariate = getattr(recipe, "covariate", None)
-    columns = getattr(data, "columns", {}) or {}
-    labels = getattr(data, "labels", {}) or {}
-    for name, levels in labels.items():
-        if len(levels) == n_terms and len(levels) > 1 and name in columns \
-                and np.asarray(columns[name]).size != n_terms:
-            return [f"{name} {level}" for level in levels]
-    if covariate and covariate in columns and np.asarray(columns[covariate]).size == n_terms:
-        values = np.asarray(columns[covariate], dtype=float)
-        words = [f"{covariate} {number(v)}" for v in values]
-        for name, levels in labels.items():
-            codes = np.asarray(columns.get(name, []))
-            if len(levels) > 1 and codes.size == n_terms:
-                words = [f"{name} {levels[int(c)]}, {w}" for c, w in zip(codes, words)]
-        return words
-    return [f"row {i + 1}" for i in range(n_terms)]
+    """A label for each pointwise LOO term in the table's words (see :func:`loo_terms`)."""
+    return loo_terms(design, data, n_terms)[1]
 
 
 def contributors(gain: np.ndarray, labels: list[str]) -> list[dict]:

@@ -131,7 +131,8 @@ def figures(run) -> dict[str, dict]:
     if recipe is not None and recipe.figure is not None:
         fig = recipe.figure(run.data, run.design.options, posterior, predictive)
         out["fit"] = {"uri": plots.to_data_uri(fig),
-                      "caption": "Observed data against the fitted model."}
+                      "caption": "Observed data against the fitted model: each point with the 90% interval of "
+                              "its replicated values, a point outside it marked ◆."}
     else:
         covariate = getattr(recipe, "covariate", None) if recipe else None
         observed = fit.idata["observed_data"].to_dataset()
@@ -143,7 +144,8 @@ def figures(run) -> dict[str, dict]:
             fig = plots.predictive_by_covariate(
                 x, y, prior_predictive.get(name), predictive.get(name), covariate or "row", name)
             out[f"fit-{name}"] = {"uri": plots.to_data_uri(fig),
-                                  "caption": f"{name}: observed against prior and posterior predictive."}
+                                  "caption": f"{name}: observed against prior and posterior predictive, each point with "
+                                             f"the 90% interval of its replicated values, a point outside it marked ◆."}
     from workbench.rules.model_fit import loo_pit_reading
 
     words = outcome_words(run.design)
@@ -161,7 +163,9 @@ def figures(run) -> dict[str, dict]:
         relaxation = assumption.relaxation
         if relaxation and relaxation.parameter in run.relaxed:
             draws = run.relaxed[relaxation.parameter].draws([relaxation.parameter])[relaxation.parameter]
-            fig = plots.relaxation_posterior(draws, relaxation.null, relaxation.negligible, relaxation.parameter)
+            fig = plots.relaxation_posterior(draws, relaxation.null, relaxation.negligible, relaxation.parameter,
+                                             parameter_support(run.relaxed[relaxation.parameter], run.design,
+                                                               relaxation.parameter))
             out[f"relaxation-{assumption.key}"] = {
                 "uri": plots.to_data_uri(fig),
                 "caption": f"Posterior of '{relaxation.parameter}' in the expanded model, against its null."}
@@ -177,8 +181,10 @@ def figures(run) -> dict[str, dict]:
                         "caption": "Posterior draws of the parameters in pairs; divergent transitions marked x."}
     loo = run.extras.get("loo")
     if loo:
-        out["pareto-k"] = {"uri": plots.to_data_uri(plots.pareto_k(loo["pareto_k"], loo["k_threshold"])),
-                           "caption": "Pareto k of each row in PSIS-LOO."}
+        unit, labels = loo.get("unit", "row"), loo.get("labels")
+        out["pareto-k"] = {"uri": plots.to_data_uri(plots.pareto_k(loo["pareto_k"], loo["k_threshold"], unit, labels)),
+                           "caption": pareto_caption(unit, len(loo["pareto_k"]), loo["k_threshold"],
+                                                     getattr(run.data_info, "rows", None))}
     if run.calibration is not None and run.calibration.ranks:
         from workbench.checks.calibration import ECDF_FIGURE, HISTOGRAM_FIGURE
         from workbench.report import calibration_plots
@@ -194,6 +200,49 @@ def figures(run) -> dict[str, dict]:
             "uri": plots.to_data_uri(calibration_plots.rank_histogram_figure(run.calibration)),
             "caption": f"Calibration rank histograms with the 99% range of each bar. {source}"}
     return out
+
+
+def high_pareto_k(loo: dict) -> list[str]:
+    """Labels of the terms whose Pareto k is above the threshold (their numbers from 1 without labels)."""
+    labels = loo.get("labels")
+    return [labels[i] if labels else f"{loo.get('unit', 'row')} {i + 1}" for i in loo.get("bad_pareto_k", [])]
+
+
+def pareto_caption(unit: str, terms: int, threshold: float, rows: int | None) -> str:
+    """What the Pareto k plot shows, in the unit PSIS-LOO leaves out."""
+    plural = unit if unit.endswith("s") else unit + "s"
+    text = f"Pareto k of each {unit} in PSIS-LOO ({terms} {plural}; each term leaves one {unit} out"
+    if rows is not None and rows != terms:
+        text += f" of a table of {rows} rows"
+    return text + f"); above {threshold:.2f} importance sampling cannot stand in for refitting."
+
+
+def parameter_support(fit, design, name: str) -> tuple[float, float]:
+    """The interval a parameter lives on: from its transform in the fitted model, else its prior."""
+    from pymc.distributions.transforms import Interval, LogOddsTransform, LogTransform
+
+    model = getattr(fit, "model", None)
+    if model is not None and name in model.named_vars:
+        rv = model[name]
+        transform = model.rvs_to_transforms.get(rv)
+        if isinstance(transform, LogTransform):
+            return 0.0, np.inf
+        if isinstance(transform, LogOddsTransform):
+            return 0.0, 1.0
+        if isinstance(transform, Interval):
+            bounds = [b if b is None else float(np.asarray(b.eval() if hasattr(b, "eval") else b))
+                      for b in transform.args_fn(*rv.owner.inputs)]
+            return (-np.inf if bounds[0] is None else bounds[0]), (np.inf if bounds[1] is None else bounds[1])
+        if rv in model.free_RVs:
+            return -np.inf, np.inf
+    from workbench.errors import OptionError
+    from workbench.priors import parse_prior, support
+
+    try:
+        found = support(parse_prior(design.prior_text(name), where=name))
+    except (AttributeError, OptionError):  # a model file's parameter has no prior text
+        found = None
+    return found or (-np.inf, np.inf)
 
 
 def figure_order(verdict, available) -> list[str]:
@@ -271,6 +320,8 @@ def render(run, summary: dict, command: str = "", truth=None) -> str:
         loo_figs=loo_figs,
         calibration_figs=calibration_figs,
         derived=summary.get("derived") or {},
+        loo_unit=(run.extras.get("loo") or {}).get("unit", "row"),
+        high_k=high_pareto_k(run.extras.get("loo") or {}),
         command=command,
         escape=html.escape,
     )

@@ -164,7 +164,45 @@ def funnel(f: Finding) -> Judgement:
         f"Write {child} in the non-centred form: {child} = {location} + {scale} * {child}_z "
         f"with {child}_z ~ Normal(0, 1)."
     )
+    if n.get("revision"):
+        advice = revision_outcome(n["revision"])
     return Judgement(2 if located else 1, sentence, advice, strength=2.0 if located else 1.0)
+
+
+def revision_outcome(record: dict) -> str:
+    """What the fitted non-centred form showed, as advice (see :mod:`workbench.revisions`).
+
+    The revised fit was judged by these same rules (``after.verdict``, and
+    its own lead evidence in ``remaining``); its estimates agree with the
+    original fit's when no posterior mean moved by ``agreement.threshold``
+    posterior sds or more.
+    """
+    before, after, agreement = record["before"], record["after"], record["agreement"]
+    largest = agreement["largest"]
+    moved = (f"{largest['parameter']} moved by {largest['shift']:.2f} posterior sd"
+             if largest["parameter"] else "no shared parameter to compare")
+    numbers = (
+        f"divergences from {before['divergences']} to {after['divergences']}, smallest bulk "
+        f"ESS from {before['min_ess_bulk']:.0f} to {after['min_ess_bulk']:.0f}, largest R-hat "
+        f"from {before['max_rhat']:.3f} to {after['max_rhat']:.3f}"
+    )
+    text = f"Refitted with {record['change']}: {numbers}."
+    if not record["fixed"]:
+        return (f"{text} The revised fit's computation is still broken, so the non-centred form "
+                f"alone does not fix it ({record['remaining']['sentence']}). With few data per "
+                f"group the scale's posterior may reach zero: give it a prior that keeps it "
+                f"away from implausibly small values.")
+    if agreement["agree"]:
+        text += (f" The estimates agree (largest change: {moved}; within "
+                 f"{agreement['threshold']} sd or their Monte Carlo error): the non-centred form "
+                 f"fixes the funnel; adopt it.")
+    else:
+        text += (f" The estimates change ({moved}): the funnel biased the centred fit; adopt the "
+                 f"non-centred form and read its estimates, not these.")
+    if after["verdict"] != "holds":
+        text += (f" The revised fit is {after['verdict']} on its own: "
+                 f"{record['remaining']['sentence']} {record['remaining']['advice']}")
+    return text
 
 
 @rule("boundary")
