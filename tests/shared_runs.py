@@ -185,3 +185,28 @@ def planted_extra_failure():
                             settings=FAST, workers=1)
     summary = writers.summary(run)
     return run, summary, render(run, summary)
+
+
+# The everyday model files of tests/model_files checked with no ASSUMPTIONS:
+# (file stem, planted fault or '' for the clean twin). A clean twin shares its
+# faulty table's covariates (same seed), so its fits reuse the compiled models.
+AUTOMATIC_SEED = 3
+
+
+@functools.cache
+def automatic_check(stem: str, fault: str = ""):
+    """``workbench.check`` of ``tests/model_files/STEM.py`` on its simulated scenario, at the
+    suite's small draws and every other default; returns the CheckResult."""
+    import importlib.util
+
+    from conftest import FAST
+    from workbench import api
+
+    path = Path(__file__).parent / "model_files" / f"{stem}.py"
+    spec = importlib.util.spec_from_file_location(f"scenario_{stem}", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    csv = root() / f"{stem}-{fault or 'clean'}.csv"
+    module.scenario_table(AUTOMATIC_SEED, fault).to_csv(csv, index=False)
+    return api.check(str(path), csv, settings=FAST, out=root() / f"auto-{stem}-{fault or 'clean'}",
+                     history=False)

@@ -208,7 +208,12 @@ def test_model_file_without_assumptions_gets_every_generic_check(centred):
     assert doc["recipe"] == "eight_schools_centred.py"
     assert [a["key"] for a in doc["assumptions"]].count("predictions") == 1
     assert {a["key"] for a in doc["assumptions"]} == {"priors", "computation", "implementation",
-                                                     "predictions"}
+                                                     "predictions", "tails:y", "constant_scale:y"}
+    # Each school's standard error is given, so the automatic tail and scale
+    # assumptions of its normal likelihood are listed as not checked, with why.
+    for key in ("tails:y", "constant_scale:y"):
+        item = assumption(centred, key)
+        assert item["verdict"] == "unchecked" and "given by the data" in item["advice"]
     checks = {e["check"] for a in doc["assumptions"] for e in a["evidence"]}
     assert {"ppc:y_mean", "ppc:y_sd", "ppc:y_min", "ppc:y_max"} <= checks
     assert any(c.startswith("prior_coverage:y") for c in checks)

@@ -21,7 +21,9 @@ A model file is a Python file that defines
 
 :func:`design_from_file` returns a :class:`ModelFileDesign`, which answers
 the harness the way :class:`workbench.recipe.Design` does. Besides the
-user's assumptions, every model file gets the generic assumption
+user's assumptions, every model file gets the automatic assumptions that
+:mod:`workbench.automatic` reads from its likelihoods and its table (a key
+the user declares replaces the automatic one) and the generic assumption
 ``predictions``: posterior predictive checks of the mean, sd, minimum and
 maximum of each observed variable (and the share of zeros for counts).
 
@@ -51,7 +53,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
-from workbench import tables
+from workbench import automatic, tables
 from workbench.errors import ModelFileError, OptionError, WorkbenchError
 from workbench.findings import GENERIC_ASSUMPTIONS
 from workbench.recipe import Assumption, Relaxation, Statistic
@@ -237,9 +239,11 @@ def design_from_file(path: str | Path, options: dict | None = None,
     return ModelFileDesign(path)
 
 
-def _reload(path: str, outcomes: dict[str, bool]) -> "ModelFileDesign":
+def _reload(path: str, outcomes: dict[str, bool],
+            derived: tuple[automatic.Spec, ...] = ()) -> "ModelFileDesign":
     design = ModelFileDesign(Path(path))
     design._outcomes = dict(outcomes)
+    design._automatic = tuple(derived)
     return design
 
 
@@ -278,6 +282,9 @@ class ModelFileDesign:
         self.options: dict[str, Any] = {}
         self.priors: dict[str, str] = {}
         self._outcomes: dict[str, bool] = {}  # observed variable -> is a count
+        # Assumptions read from the likelihoods and the table by validate (plain data).
+        self._automatic: tuple[automatic.Spec, ...] = ()
+        self._fitted = automatic.FittedValues(build)
         doc = (module.__doc__ or "").strip().splitlines()
         self.recipe = ModelFileRecipe(
             name=self.path.name,
@@ -305,7 +312,7 @@ class ModelFileDesign:
 
     def __reduce__(self):
         # Worker processes reload the file by path (a design holds its functions).
-        return (_reload, (str(self.path.resolve()), self._outcomes))
+        return (_reload, (str(self.path.resolve()), self._outcomes, self._automatic))
 
     # -- what the harness asks
 
@@ -316,13 +323,19 @@ class ModelFileDesign:
 
     @property
     def assumptions(self) -> tuple[Assumption, ...]:
-        """The user's assumptions, then one ``predictions`` entry per default statistic.
+        """The user's assumptions, the automatic ones, then one ``predictions`` entry per
+        default statistic.
 
-        Several entries share the key ``predictions``; the verdict step
-        judges them as one assumption.
+        The automatic assumptions (:mod:`workbench.automatic`) are those
+        :meth:`validate` read from the likelihoods and the table; a key the
+        user declares replaces the automatic one. Several entries share the
+        key ``predictions``; the verdict step judges them as one assumption.
         """
         own = tuple(_on_frame_assumption(self.path, a) for a in self._assumptions)
-        return own + default_assumptions(self._outcomes)
+        keys = {a.key for a in own}
+        derived = automatic.assumptions(tuple(s for s in self._automatic if s.key not in keys),
+                                        self._fitted)
+        return own + derived + default_assumptions(self._outcomes)
 
     def validate(self, table: pd.DataFrame) -> FrameData:
         """Build the model on the table once and check it can be sampled.
@@ -339,6 +352,8 @@ class ModelFileDesign:
         check_observed(self.path, model, "build_model")
         check_initial_point(self.path, model, "build_model")
         self._outcomes = {rv.name: _is_count(model, rv) for rv in model.observed_RVs}
+        self._automatic = automatic.derive(model, data.frame, self._build_model,
+                                           {a.key for a in self._assumptions})
         for assumption in self._assumptions:
             relaxation = assumption.relaxation
             if relaxation is None:
