@@ -32,7 +32,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves, engine
+from workbench import cohorts, curves, engine, units
 from workbench.recipe import (
     Assumption,
     Column,
@@ -56,7 +56,10 @@ EVENTUAL = Option(
 
 
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
-    """Check the table (see :func:`workbench.cohorts.validate`)."""
+    """Check the table: one row per unit when it has a ``time`` column
+    (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
+    if units.is_unit_table(table):
+        return units.validate(table, None, options, NAME)
     return cohorts.validate(table, [OUTCOME], options, NAME)
 
 
@@ -73,6 +76,10 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     """
     eventual = float(params.get("eventual", 1.0)) if options["eventual"] == "estimate" else 1.0
     eventual *= 1.0 - float(params.get("never", 0.0))
+    if units.is_units(data):
+        return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
+                              params["shape"], [eventual],
+                              power=float(np.exp(params.get("curve_power", 0.0))))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
         params["shape"], [eventual],
@@ -90,8 +97,9 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pymc as pm
     import pytensor.tensor as pt
 
-    with pm.Model(coords=cohorts.coords(data)) as model:
-        counts = cohorts.counts_container(data)
+    unit = units.is_units(data)
+    with pm.Model(coords=units.coords(data) if unit else cohorts.coords(data)) as model:
+        counts = units.container(data) if unit else cohorts.counts_container(data)
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
         shape = prior("shape")
         if options["eventual"] == "estimate":
@@ -107,6 +115,11 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         else:
             eventual = pt.ones(())
         share = pm.Deterministic("share", pt.reshape(eventual, (1,)), dims="outcome")
+        if unit:
+            closed = options["eventual"] == "all" and relax != "never"
+            units.likelihood(data, counts, options["family"], scale_group, shape, share, relax, prior,
+                             closed)
+            return model
         cumulative = cohorts.cumulative_tensor(
             data, options["family"], scale_group, shape, share, relax, prior
         )
@@ -132,6 +145,8 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
 
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
     """Cumulative share with the event over age: fitted curve and band against the cohorts."""
+    if units.is_units(data):
+        return units.figure(data, options["family"], posterior, "share with the event")
     return cohorts.figure(data, options["family"], posterior, "share with the event")
 
 

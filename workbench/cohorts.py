@@ -34,7 +34,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
-from workbench import curves, engine, tables
+from workbench import curves, engine, tables, units
 from workbench.errors import DataError
 from workbench.recipe import (Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic,
                               choose_pooling, flag)
@@ -314,6 +314,8 @@ START_MARGIN = 0.02
 
 def observed_shares(data: Dataset, counts):
     """Pooled share of units with each outcome by their cohort's last age (K,), as a tensor."""
+    if units.is_units(data):
+        return units.observed_shares(data, counts)
     k = len(data.extra["outcomes"])
     events = counts[:, :-1].reshape((counts.shape[0], data.extra["slots"], k)).sum(axis=(0, 1))
     return events / counts.sum()
@@ -328,6 +330,8 @@ def event_ages(data: Dataset, counts):
     """
     import pytensor.tensor as pt
 
+    if units.is_units(data):
+        return units.event_ages(data, counts)
     k = len(data.extra["outcomes"])
     age = relative_age(data)
     before = np.where(data["prev_row"] >= 0, age[np.maximum(data["prev_row"], 0)], 0.0)
@@ -411,7 +415,9 @@ def coords(data: Dataset) -> dict:
 
 
 def observed(data: Dataset) -> dict:
-    """Values of the outcome container: the cell counts."""
+    """Values of the outcome container: the cell counts (the units, in the unit layout)."""
+    if units.is_units(data):
+        return units.observed(data)
     return {"counts": cell_counts(data)}
 
 
@@ -511,6 +517,8 @@ def _flat(*arrays):
 
 def late_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Slope of standardised cumulative residuals on log age, over rows at or past the median age."""
+    if units.is_units(data):
+        return units.hazard_trend(data, outcomes, draws)
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"])
     late = data["age"] >= np.median(data["age"])
@@ -521,6 +529,8 @@ def late_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 
 def plateau_shortfall(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Standardised residual of all outcomes together at the oldest quarter of rows."""
+    if units.is_units(data):
+        return units.late_shortfall(data, outcomes, draws)
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"]).sum(axis=-1)
     # Variance of the sum: the outcomes of one row are negatively correlated,
@@ -531,6 +541,8 @@ def plateau_shortfall(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 
 def cohort_spread(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Variance across cohorts of each cohort's mean standardised cumulative residual."""
+    if units.is_units(data):
+        return units.cohort_spread(data, outcomes, draws)
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"])
     r = standardised(y, mean, var).mean(axis=-1)
@@ -706,5 +718,6 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
                    "site, a day); model it as an effect or use the overdispersed likelihood.",
+            informed_by=units.no_independence_check,
         ),
     )
