@@ -178,8 +178,6 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
 
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
     """Stacked cumulative shares of the outcomes over age against the cohorts."""
-    if units.is_units(data):
-        return units.figure(data, options["family"], posterior, "share ended (stacked by outcome)")
     return cohorts.figure(data, options["family"], posterior, "share ended (stacked by outcome)")
 
 
@@ -258,7 +256,8 @@ RECIPE = Recipe(
                       "otherwise one estimated share stays open).",
             statistic=Statistic(
                 "plateau_level",
-                "standardised residual of all ended units at the oldest quarter of rows",
+                "standardised residual of all ended units at the oldest quarter of rows (one row per unit: "
+                "observed-minus-expected outcomes past the 75th percentile of outcome times)",
                 cohorts.plateau_shortfall,
             ),
             relaxation=cohorts.relaxation(

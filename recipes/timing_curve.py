@@ -145,8 +145,6 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
 
 def figure(data: Dataset, options: dict, posterior: dict, predictive: dict):
     """Cumulative share with the event over age: fitted curve and band against the cohorts."""
-    if units.is_units(data):
-        return units.figure(data, options["family"], posterior, "share with the event")
     return cohorts.figure(data, options["family"], posterior, "share with the event")
 
 
@@ -219,7 +217,8 @@ RECIPE = Recipe(
                       "(all of them under eventual=all, one estimated share otherwise).",
             statistic=Statistic(
                 "plateau_level",
-                "standardised residual of cumulative events at the oldest quarter of rows",
+                "standardised residual of cumulative events at the oldest quarter of rows (one row per unit: "
+                "observed-minus-expected outcomes past the 75th percentile of outcome times)",
                 cohorts.plateau_shortfall,
             ),
             relaxation=cohorts.relaxation(

@@ -570,8 +570,10 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     """Cumulative share per outcome over age, stacked, fitted band against the data.
 
     One panel per group (at most four). Points are each row's observed
-    cumulative shares (stacked over outcomes, sized by exposed); lines and
-    bands are the posterior median and 90% interval of the stacked curves.
+    cumulative shares (stacked over outcomes, sized by exposed); with one
+    row per unit, steps are the Aalen-Johansen estimate from the group's
+    units (Kaplan-Meier for one outcome). Lines and bands are the posterior
+    median and 90% interval of the stacked curves.
     """
     import matplotlib.pyplot as plt
 
@@ -590,21 +592,30 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float))[pick]
     grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
     rel = grid / data.extra["age_ref"]
-    observed_share = counts_of(data) / data["exposed"][:, None]
+    unit = units.is_units(data)
+    observed_share = None if unit else counts_of(data) / data["exposed"][:, None]
     tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.15, 0.85, k)] if k > 1 else [FIT]
     for g, ax in enumerate(axes[0]):
         f = curves.cdf(family, rel[None, :, None], scale[:, None, g, :], shape[:, None, :])
         stacked = np.cumsum(share[:, None, :] * f ** power[:, None, None], axis=-1)
         lo, mid, hi = np.percentile(stacked, [5, 50, 95], axis=0)
         rows = data["group"] == g
-        size = 8 + 40 * data["exposed"][rows] / data["exposed"].max()
-        obs = np.cumsum(observed_share[rows], axis=-1)
+        if unit:
+            at, incidence = units.product_limit(data["time"][rows], data["code"][rows],
+                                                data["entry"][rows], k)
+            steps = np.cumsum(incidence, axis=-1)
+        else:
+            size = 8 + 40 * data["exposed"][rows] / data["exposed"].max()
+            obs = np.cumsum(observed_share[rows], axis=-1)
         for j in range(k):
             label = " + ".join(outcomes[: j + 1]) if k > 1 else "fitted"
             ax.fill_between(grid, lo[:, j], hi[:, j], color=tones[j], alpha=0.25, lw=0)
             ax.plot(grid, mid[:, j], color=tones[j], lw=1.6, label=f"{label} (median, 90%)")
-            ax.scatter(data["age"][rows], obs[:, j], s=size, facecolor="none",
-                       edgecolor=tones[j] if k > 1 else INK, lw=0.9)
+            edge = tones[j] if k > 1 else INK
+            if unit:
+                ax.step(np.append(0.0, at), np.append(0.0, steps[:, j]), where="post", color=edge, lw=0.9)
+            else:
+                ax.scatter(data["age"][rows], obs[:, j], s=size, facecolor="none", edgecolor=edge, lw=0.9)
         ax.set_ylim(0, 1.02)
         ax.set_xlabel("age")
         ax.set_title(groups[g] if len(data.labels["group"]) > 1 else "", fontsize=10)
@@ -671,7 +682,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             statement="The timing (of every outcome) follows the chosen family.",
             statistic=Statistic(
                 "late_trend",
-                "slope of standardised cumulative residuals on log age past the median age",
+                "slope of standardised cumulative residuals on log age past the median age (one row per "
+                "unit: of observed-minus-expected outcomes per time bin on log time)",
                 late_trend,
             ),
             relaxation=relaxation(
@@ -688,7 +700,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             statement="Every cohort (within a group) follows the same timing.",
             statistic=Statistic(
                 "cohort_spread",
-                "variance across cohorts of the mean standardised residual",
+                "variance across cohorts of the mean standardised residual (one row per unit: of each "
+                "cohort's standardised observed-minus-expected outcomes)",
                 cohort_spread,
                 sides="greater",
             ),

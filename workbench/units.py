@@ -638,57 +638,6 @@ def cohort_spread(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     return standardised(observed_cohorts, expected_cohorts, expected_cohorts).var(axis=-1)
 
 
-# --- figure --------------------------------------------------------------------------------
-
-
-def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int = 200):
-    """Stacked cumulative incidence over time: fitted band against the Aalen-Johansen estimate.
-
-    One panel per group (at most four); the steps are the nonparametric
-    estimate from the units of the group (Kaplan-Meier for one outcome).
-    """
-    import matplotlib.pyplot as plt
-
-    from workbench.report.plots import FIT, INK
-
-    outcomes = data.extra["outcomes"]
-    k = len(outcomes)
-    groups = data.labels["group"][:4]
-    fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 1.2, 3.6), squeeze=False)
-    scale = np.asarray(posterior["scale_group"], dtype=float)
-    s = scale.shape[0]
-    pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
-    scale = scale.reshape(s, len(data.labels["group"]), k)[pick]
-    shape = np.asarray(posterior["shape"], dtype=float).reshape(s, -1)[pick]
-    share = np.asarray(posterior["share"], dtype=float).reshape(s, -1)[pick]
-    power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float))[pick]
-    grid = np.linspace(0.0, data["time"].max() * 1.02, 120)
-    rel = grid / data.extra["age_ref"]
-    tones = [plt.get_cmap("viridis")(x) for x in np.linspace(0.15, 0.85, k)] if k > 1 else [FIT]
-    for g, ax in enumerate(axes[0]):
-        f = curves.cdf(family, rel[None, :, None], scale[:, None, g, :], shape[:, None, :])
-        stacked = np.cumsum(share[:, None, :] * f ** power[:, None, None], axis=-1)
-        lo, mid, hi = np.percentile(stacked, [5, 50, 95], axis=0)
-        rows = data["group"] == g
-        at, incidence = product_limit(data["time"][rows], data["code"][rows], data["entry"][rows], k)
-        steps = np.cumsum(incidence, axis=1)
-        for j in range(k):
-            label = " + ".join(outcomes[: j + 1]) if k > 1 else "fitted"
-            ax.fill_between(grid, lo[:, j], hi[:, j], color=tones[j], alpha=0.25, lw=0)
-            ax.plot(grid, mid[:, j], color=tones[j], lw=1.6, label=f"{label} (median, 90%)")
-            if at.size:
-                ax.step(np.concatenate([[0.0], at]), np.concatenate([[0.0], steps[:, j]]),
-                        where="post", color=tones[j] if k > 1 else INK, lw=0.9)
-        ax.set_ylim(0, 1.02)
-        ax.set_xlabel("time")
-        ax.set_title(groups[g] if len(data.labels["group"]) > 1 else "", fontsize=10)
-        ax.spines[["top", "right"]].set_visible(False)
-    axes[0][0].set_ylabel(ylabel)
-    axes[0][-1].legend(fontsize=8, frameon=False, loc="lower right")
-    fig.tight_layout()
-    return fig
-
-
 def no_independence_check(data: Dataset) -> str:
     """Why ``independent_units`` is not checked on unit rows ("" for cohort counts)."""
     if not is_units(data):
