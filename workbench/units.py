@@ -412,8 +412,11 @@ def _logp(value, entry, follow, scale, shape, share, power, fields, family, clos
         log_sf = curves.log_survival_tensor(family, t[:, None], scale, shape)
         log_f = _log1mexp(pt.minimum(log_sf, -curves.TINY_SURVIVAL))
         log_density = log_density + pt.log(power) + (power - 1.0) * log_f
-    index = pt.cast(pt.maximum(code - 1.0, 0.0), "int64")
-    outcome = pt.take_along_axis(log_density, index[:, None], axis=1)[:, 0]
+    # Elementwise choice of each unit's outcome (no indexing: its gradient stays elementwise).
+    k = len(log_density.type.shape) and log_density.type.shape[1]
+    outcome = log_density[:, 0]
+    for j in range(1, k):
+        outcome = pt.switch(pt.eq(code, j + 1), log_density[:, j], outcome)
     seen = _log_survival(family, t, scale, shape, share, power, closed, powered)
     late = entry > 0
     # Evaluated at a safe time where there is no entry, then switched off.
@@ -584,23 +587,46 @@ def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
         f = f ** power[part][:, None, None, None]
         h_edge = -np.log(np.maximum(1.0 - (share[part][:, None, None, :] * f).sum(-1), curves.TINY_SURVIVAL))
         h_edge = np.concatenate([np.zeros((m, n_cohorts, 1)), h_edge, np.full((m, n_cohorts, 1), np.inf)], 2)
-        expected = np.zeros((m, n, n_bins))
-        for b in range(n_bins):
-            low, high = h_edge[:, cohort, b], h_edge[:, cohort, b + 1]
-            top = np.clip(h_t, low, high)
-            bottom = np.clip(h_e, low, high)
-            expected[:, :, b] = np.maximum(top - bottom, 0.0)
-        bin_of = np.clip(np.searchsorted(edges, t, side="left") - 1, 0, n_bins - 1)
-        seen = (code > 0).astype(float)
         draw = np.arange(m)[:, None]
+        bin_of = _bin_of(edges, t)
+        top = _clipped_sums(h_t, bin_of, cohort, h_edge)
+        bottom = _clipped_sums(h_e, np.broadcast_to(_bin_of(edges, entry), t.shape), cohort, h_edge)
+        seen = (code > 0).astype(float)
         outputs[0][part] = _sums(draw * n_bins + bin_of, seen, m * n_bins).reshape(m, n_bins)
-        outputs[1][part] = expected.sum(axis=1)
+        outputs[1][part] = np.maximum(top - bottom, 0.0)
         by_cohort = draw * n_cohorts + cohort[None, :]
         outputs[2][part] = _sums(by_cohort, seen, m * n_cohorts).reshape(m, n_cohorts)
-        outputs[3][part] = _sums(by_cohort, expected.sum(axis=2), m * n_cohorts).reshape(m, n_cohorts)
+        outputs[3][part] = _sums(by_cohort, h_t - h_e, m * n_cohorts).reshape(m, n_cohorts)
     # Each value stands for the `step` draws from its own on.
     fill = np.minimum(np.arange(s_all) // step, picked.size - 1)
     return tuple(a[fill] for a in outputs)
+
+
+def _bin_of(edges: np.ndarray, t) -> np.ndarray:
+    """The time bin of each time: bin b holds (edges[b], edges[b + 1]]."""
+    return np.clip(np.searchsorted(edges, t, side="left") - 1, 0, edges.size - 2)
+
+
+def _clipped_sums(h, bin_of, cohort, h_edge) -> np.ndarray:
+    """Per draw and bin, the sum over units of H clipped to the bin's cumulative-hazard range.
+
+    ``h`` (S, n) is each unit's cumulative hazard at a time in bin
+    ``bin_of`` (S, n); ``h_edge`` (S, C, B + 1) the hazard at the bin edges
+    for each cohort. A unit past bin b adds the bin's upper edge, one before
+    it the lower edge, one inside it its own value, so that one pass over
+    the units serves every bin (H is increasing in time).
+    """
+    m, n_cohorts, n_edges = h_edge.shape
+    n_bins = n_edges - 1
+    draw = np.arange(m)[:, None]
+    index = (draw * n_cohorts + cohort[None, :]) * n_bins + bin_of
+    counts = _sums(index, 1.0, m * n_cohorts * n_bins).reshape(m, n_cohorts, n_bins)
+    upto = np.cumsum(counts, axis=2)
+    below = upto - counts
+    above = upto[:, :, -1:] - upto
+    upper = np.where(above > 0, above * np.where(np.isfinite(h_edge[:, :, 1:]), h_edge[:, :, 1:], 0.0), 0.0)
+    inside = _sums(draw * n_bins + bin_of, h, m * n_bins).reshape(m, n_bins)
+    return (upper + below * h_edge[:, :, :-1]).sum(axis=1) + inside
 
 
 def _sums(index, weights, size) -> np.ndarray:
