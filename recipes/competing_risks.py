@@ -30,7 +30,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves, engine
+from workbench import cohorts, curves, engine, units
 from workbench.recipe import (
     Assumption,
     Column,
@@ -67,7 +67,10 @@ RESOLVE = Option(
 
 
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
-    """Check the table (see :func:`workbench.cohorts.validate`)."""
+    """Check the table: one row per unit when it has a ``time`` column
+    (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
+    if units.is_unit_table(table):
+        return units.validate(table, list(options["outcomes"]), options, NAME)
     return cohorts.validate(table, list(options["outcomes"]), options, NAME)
 
 
@@ -92,6 +95,10 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     ``overdispersion`` to plant faults.
     """
     k = len(data.extra["outcomes"])
+    if units.is_units(data):
+        return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
+                              np.asarray(params["shape"], dtype=float).reshape(-1), _shares(params, k),
+                              power=float(np.exp(params.get("curve_power", 0.0))))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
         np.asarray(params["shape"], dtype=float).reshape(-1), _shares(params, k),
@@ -110,12 +117,13 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pytensor.tensor as pt
 
     k = len(data.extra["outcomes"])
-    model_coords = cohorts.coords(data)
+    unit = units.is_units(data)
+    model_coords = units.coords(data) if unit else cohorts.coords(data)
     estimate = options["resolve"] == "estimate"
     # Log-odds of every part against the first outcome (the reference).
     model_coords["part"] = data.extra["outcomes"][1:] + (["open"] if estimate else [])
     with pm.Model(coords=model_coords) as model:
-        counts = cohorts.counts_container(data)
+        counts = units.container(data) if unit else cohorts.counts_container(data)
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = prior("shape", dims="outcome")
         logit = prior("share_logit", dims="part")
@@ -134,6 +142,11 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         elif relax == "unresolved":
             share = share * (1.0 - prior("unresolved"))
         share = pm.Deterministic("share", share, dims="outcome")
+        if unit:
+            closed = not estimate and relax != "unresolved"
+            units.likelihood(data, counts, options["family"], scale_group, shape, share, relax, prior,
+                             closed)
+            return model
         cumulative = cohorts.cumulative_tensor(
             data, options["family"], scale_group, shape, share, relax, prior
         )
@@ -244,7 +257,8 @@ RECIPE = Recipe(
                       "otherwise one estimated share stays open).",
             statistic=Statistic(
                 "plateau_level",
-                "standardised residual of all ended units at the oldest quarter of rows",
+                "standardised residual of all ended units at the oldest quarter of rows (one row per unit: "
+                "observed-minus-expected outcomes past the 75th percentile of outcome times)",
                 cohorts.plateau_shortfall,
             ),
             relaxation=cohorts.relaxation(

@@ -32,7 +32,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves, engine
+from workbench import cohorts, curves, engine, units
 from workbench.recipe import (
     Assumption,
     Column,
@@ -56,7 +56,10 @@ EVENTUAL = Option(
 
 
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
-    """Check the table (see :func:`workbench.cohorts.validate`)."""
+    """Check the table: one row per unit when it has a ``time`` column
+    (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
+    if units.is_unit_table(table):
+        return units.validate(table, None, options, NAME)
     return cohorts.validate(table, [OUTCOME], options, NAME)
 
 
@@ -73,6 +76,10 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     """
     eventual = float(params.get("eventual", 1.0)) if options["eventual"] == "estimate" else 1.0
     eventual *= 1.0 - float(params.get("never", 0.0))
+    if units.is_units(data):
+        return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
+                              params["shape"], [eventual],
+                              power=float(np.exp(params.get("curve_power", 0.0))))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
         params["shape"], [eventual],
@@ -90,8 +97,9 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pymc as pm
     import pytensor.tensor as pt
 
-    with pm.Model(coords=cohorts.coords(data)) as model:
-        counts = cohorts.counts_container(data)
+    unit = units.is_units(data)
+    with pm.Model(coords=units.coords(data) if unit else cohorts.coords(data)) as model:
+        counts = units.container(data) if unit else cohorts.counts_container(data)
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
         shape = prior("shape")
         if options["eventual"] == "estimate":
@@ -107,6 +115,15 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         else:
             eventual = pt.ones(())
         share = pm.Deterministic("share", pt.reshape(eventual, (1,)), dims="outcome")
+        if unit:
+            if relax == "cohort_share_sd":
+                # Not built for one row per unit yet: the relaxed model stays
+                # at its null, so it gains nothing and decides nothing.
+                pm.Deterministic("cohort_share_sd", pt.zeros(()))
+            closed = options["eventual"] == "all" and relax != "never"
+            units.likelihood(data, counts, options["family"], scale_group, shape, share, relax, prior,
+                             closed)
+            return model
         if relax == "cohort_share_sd" and options["eventual"] == "estimate":
             # Each cohort's eventual share on the log-odds scale about the typical one.
             sd = prior("cohort_share_sd")
@@ -224,7 +241,8 @@ RECIPE = Recipe(
                       "(all of them under eventual=all, one estimated share otherwise).",
             statistic=Statistic(
                 "plateau_level",
-                "standardised residual of cumulative events at the oldest quarter of rows",
+                "standardised residual of cumulative events at the oldest quarter of rows (one row per unit: "
+                "observed-minus-expected outcomes past the 75th percentile of outcome times)",
                 cohorts.plateau_shortfall,
             ),
             relaxation=cohorts.relaxation(

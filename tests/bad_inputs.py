@@ -34,6 +34,9 @@ CHECK = ("check", "threshold-geometry", "--data", "{tmp}/t.csv", "--set", "clear
          "--out", "{tmp}/out")
 CALIBRATE = ("calibrate", "threshold-geometry", "--data", "{tmp}/t.csv", "--set", "clearance=0.2",
              "--workers", "1", "--history", "{tmp}/h.sqlite", "--quiet")
+UNITS = ("check", "timing-curve", "--data", "{tmp}/t.csv", "--out", "{tmp}/out")
+UNIT_OUTCOMES = ("check", "competing-risks", "--data", "{tmp}/t.csv", "--set", "outcomes=solved,withdrawn",
+                 "--out", "{tmp}/out")
 PARQUET_BYTES = b"PAR1\x15\x04\x15\x10\x15\x14L\x15\x02\x15\x00\x12\x00\x00PAR1"
 
 
@@ -104,6 +107,30 @@ CASES = [
     Case("value beyond the physics", ("check", "timing-curve", "--data", "{tmp}/t.csv", "--out", "{tmp}/out"),
          "column 'age' row 2 (line 3): expected an age >= 0; found -1",
          check_table("cohort,age,exposed,events\nA,1,10,2\nA,-1,10,3\n")),
+    # --- one row per unit (timing-curve and competing-risks)
+    Case("unit time not positive", UNITS, "column 'time' row 2 (line 3): expected a time > 0",
+         check_table("time,event\n3,1\n0,0\n")),
+    Case("unit entry after time", UNITS,
+         "column 'entry' row 1 (line 2): expected entry < time; found entry 5 >= time 3",
+         check_table("time,event,entry\n3,1,5\n4,0,1\n")),
+    Case("unit entry negative", UNITS, "column 'entry' row 2 (line 3): expected an entry time >= 0",
+         check_table("time,event,entry\n3,1,0\n4,0,-1\n")),
+    Case("unit event not 0/1", UNITS,
+         "column 'event' row 2 (line 3): expected 1 (the event happened at time) or 0",
+         check_table("time,event\n3,1\n4,2\n")),
+    Case("unit without events", UNITS, "column 'event': expected at least one unit with the event",
+         check_table("time,event\n3,0\n4,0\n")),
+    Case("unit layout mixed with counts", UNITS, "found both 'time' and 'exposed'",
+         check_table("time,event,exposed\n3,1,10\n")),
+    Case("unit group differs within cohort", UNITS,
+         "column 'group' row 2 (line 3): 'b' differs from 'a' given for cohort 'c1'",
+         check_table("time,event,cohort,group\n3,1,c1,a\n4,0,c1,b\n")),
+    Case("unknown outcome name", UNIT_OUTCOMES,
+         "column 'outcome' row 2 (line 3): expected one of solved, withdrawn or an empty cell "
+         "(last seen without an outcome); found 'lost'",
+         check_table("time,outcome\n3,solved\n4,lost\n5,\n")),
+    Case("unit time missing", UNIT_OUTCOMES, "column 'time' row 1 (line 2): expected a finite number",
+         check_table("time,outcome\n,solved\n4,withdrawn\n")),
     Case("limit not positive", ("history", "--history", "{tmp}/h.sqlite", "--limit", "-1"),
          "history: argument --limit: expected a whole number >= 1; found '-1'"),
     Case("limit not positive", ("history", "--history", "{tmp}/h.sqlite", "--limit", "0"),

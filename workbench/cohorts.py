@@ -34,7 +34,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
-from workbench import curves, engine, tables
+from workbench import curves, engine, tables, units
 from workbench.errors import DataError
 from workbench.recipe import (Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic,
                               choose_pooling, flag)
@@ -314,6 +314,8 @@ START_MARGIN = 0.02
 
 def observed_shares(data: Dataset, counts):
     """Pooled share of units with each outcome by their cohort's last age (K,), as a tensor."""
+    if units.is_units(data):
+        return units.observed_shares(data, counts)
     k = len(data.extra["outcomes"])
     events = counts[:, :-1].reshape((counts.shape[0], data.extra["slots"], k)).sum(axis=(0, 1))
     return events / counts.sum()
@@ -328,6 +330,8 @@ def event_ages(data: Dataset, counts):
     """
     import pytensor.tensor as pt
 
+    if units.is_units(data):
+        return units.event_ages(data, counts)
     k = len(data.extra["outcomes"])
     age = relative_age(data)
     before = np.where(data["prev_row"] >= 0, age[np.maximum(data["prev_row"], 0)], 0.0)
@@ -411,7 +415,9 @@ def coords(data: Dataset) -> dict:
 
 
 def observed(data: Dataset) -> dict:
-    """Values of the outcome container: the cell counts."""
+    """Values of the outcome container: the cell counts (the units, in the unit layout)."""
+    if units.is_units(data):
+        return units.observed(data)
     return {"counts": cell_counts(data)}
 
 
@@ -511,6 +517,8 @@ def _flat(*arrays):
 
 def late_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Slope of standardised cumulative residuals on log age, over rows at or past the median age."""
+    if units.is_units(data):
+        return units.hazard_trend(data, outcomes, draws)
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"])
     late = data["age"] >= np.median(data["age"])
@@ -521,6 +529,8 @@ def late_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 
 def plateau_shortfall(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Standardised residual of all outcomes together at the oldest quarter of rows."""
+    if units.is_units(data):
+        return units.late_shortfall(data, outcomes, draws)
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"]).sum(axis=-1)
     # Variance of the sum: the outcomes of one row are negatively correlated,
@@ -531,6 +541,8 @@ def plateau_shortfall(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
 
 def cohort_spread(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Variance across cohorts of each cohort's mean standardised cumulative residual."""
+    if units.is_units(data):
+        return units.cohort_spread(data, outcomes, draws)
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"])
     r = standardised(y, mean, var).mean(axis=-1)
@@ -559,10 +571,12 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     """Cumulative share per outcome over age, stacked, fitted band against the data.
 
     One panel per group (at most four). Lines and bands are the posterior
-    median and 90% interval of the stacked curves; points are each row's
-    observed cumulative shares (stacked over outcomes), each with the 90%
-    interval of its replicated shares when ``predictive`` holds the
-    replicated cell counts ``y``, and marked where it falls outside.
+    median and 90% interval of the stacked curves. With counts, points are
+    each row's observed cumulative shares (stacked over outcomes), each with
+    the 90% interval of its replicated shares when ``predictive`` holds the
+    replicated cell counts ``y``, and marked where it falls outside; with one
+    row per unit, steps are the Aalen-Johansen estimate from the group's
+    units (Kaplan-Meier for one outcome).
     """
     import matplotlib.pyplot as plt
 
@@ -581,9 +595,10 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float))[pick]
     grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
     rel = grid / data.extra["age_ref"]
-    observed_share = counts_of(data) / data["exposed"][:, None]
+    unit = units.is_units(data)
+    observed_share = None if unit else counts_of(data) / data["exposed"][:, None]
     replicated = None
-    if predictive and "y" in predictive:
+    if predictive and "y" in predictive and not unit:
         y = np.asarray(predictive["y"], dtype=float)
         y = y.reshape(y.shape[0], len(data.labels["cohort"]), -1)
         replicated = np.cumsum(cumulative_counts(data, y) / data["exposed"][None, :, None], axis=-1)
@@ -596,12 +611,20 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
         stacked = np.cumsum(share[:, None, :] * f ** power[:, None, None], axis=-1)
         lo, mid, hi = np.percentile(stacked, [5, 50, 95], axis=0)
         rows = data["group"] == g
-        obs = np.cumsum(observed_share[rows], axis=-1)
+        if unit:
+            at, incidence = units.product_limit(data["time"][rows], data["code"][rows],
+                                                data["entry"][rows], k)
+            steps = np.cumsum(incidence, axis=-1)
+        else:
+            obs = np.cumsum(observed_share[rows], axis=-1)
         for j in range(k):
             label = " + ".join(outcomes[: j + 1]) if k > 1 else "fitted"
             ax.fill_between(grid, lo[:, j], hi[:, j], color=tones[j], alpha=0.25, lw=0)
             ax.plot(grid, mid[:, j], color=tones[j], lw=1.6, label=f"{label} (median, 90%)")
             point = tones[j] if k > 1 else plots.INK
+            if unit:
+                ax.step(np.append(0.0, at), np.append(0.0, steps[:, j]), where="post", color=point, lw=0.9)
+                continue
             if replicated is None:
                 ax.plot(data["age"][rows], obs[:, j], "o", ms=4, mfc="none", mec=point, mew=0.9)
                 continue
@@ -677,7 +700,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             statement="The timing (of every outcome) follows the chosen family.",
             statistic=Statistic(
                 "late_trend",
-                "slope of standardised cumulative residuals on log age past the median age",
+                "slope of standardised cumulative residuals on log age past the median age (one row per "
+                "unit: of observed-minus-expected outcomes per time bin on log time)",
                 late_trend,
             ),
             relaxation=relaxation(
@@ -694,7 +718,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             statement="Every cohort (within a group) follows the same timing.",
             statistic=Statistic(
                 "cohort_spread",
-                "variance across cohorts of the mean standardised residual",
+                "variance across cohorts of the mean standardised residual (one row per unit: of each "
+                "cohort's standardised observed-minus-expected outcomes)",
                 cohort_spread,
                 sides="greater",
             ),
@@ -724,5 +749,6 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
                    "site, a day); model it as an effect or use the overdispersed likelihood.",
+            informed_by=units.no_independence_check,
         ),
     )

@@ -303,4 +303,8 @@ def fit(
                 idata, random_seed=seeds["posterior_predictive"], extend_inferencedata=True,
                 progressbar=False,
             )
+            from workbench.modelfile import censor_replicates
+
+            # Censored outcomes are replicated censored as the data were.
+            censor_replicates(model, idata)
     return Fit(idata, model, sampler, time.perf_counter() - start, label)

@@ -42,7 +42,8 @@ def targeted_statistics(context: Context) -> list[Finding]:
     findings = []
     for assumption in context.design.assumptions:
         statistic = assumption.statistic
-        if statistic is None:
+        # An assumption the table cannot inform is `unchecked`: nothing to score.
+        if statistic is None or assumption.uninformed(context.data):
             continue
         observed, replicated = discrepancies(statistic, context.data, context.fit)
         p = predictive_p_value(observed, replicated, statistic.sides)

@@ -135,7 +135,7 @@ def statistics_under_relaxations(context: Context) -> list[Finding]:
             continue
         for assumption in context.design.assumptions:
             statistic = assumption.statistic
-            if statistic is None or assumption.key == other.key:
+            if statistic is None or assumption.key == other.key or assumption.uninformed(context.data):
                 continue
             observed, replicated = discrepancies(statistic, context.data, relaxed)
             p = predictive_p_value(observed, replicated, statistic.sides)
