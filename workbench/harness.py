@@ -17,7 +17,7 @@ from datetime import datetime, timezone
 from importlib import metadata
 from typing import Any, Callable
 
-from workbench import checks, engine, estimates, executor, interrupts, verdicts
+from workbench import checks, engine, estimates, executor, interrupts, kfold, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -181,6 +181,24 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     return {n: done[n] for n in names}
 
 
+def refit_where_psis_fails(design, data, main: engine.Fit, relaxed: dict[str, engine.Fit], seed: int,
+                           settings: engine.Settings, say: Callable[[str], None]) -> kfold.CrossValidation:
+    """Exact refits for the relaxations whose PSIS-LOO difference cannot decide (see :mod:`workbench.kfold`).
+
+    Only a relaxation whose parameter leaves its null often enough for the
+    verdict rule to read the elpd difference is refitted.
+    """
+    from workbench.checks.relaxation import share_beyond
+    from workbench.rules.model_fit import SHARE_BEYOND_DOUBTFUL
+
+    if not relaxed:
+        return kfold.CrossValidation()
+    by_parameter = {a.relaxation.parameter: a.relaxation for a in design.assumptions if a.relaxation}
+    pull = {p: share_beyond(by_parameter[p], fit) for p, fit in relaxed.items() if p in by_parameter}
+    return kfold.refit_untrusted(design, data, main, relaxed, seed, settings, pull,
+                                 SHARE_BEYOND_DOUBTFUL, say)
+
+
 def run_check(
     design,
     data,
@@ -201,13 +219,14 @@ def run_check(
     """
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
-    seeds = engine.seed_stream(seed, "main", "relaxations")
+    seeds = engine.seed_stream(seed, "main", "relaxations", "refits")
     main = (fitter or fit_design)(design, data, seeds["main"], settings, progress=progress,
                                   label=design.label(), say=say)
     relaxed = fit_relaxations(design, data, seeds["relaxations"], settings, workers, say,
                               fitter, progress, main) if relax else {}
+    refits = refit_where_psis_fails(design, data, main, relaxed, seeds["refits"], settings, say)
     calibration = calibrate() if calibrate else None
-    context = checks.Context(design, data, main, relaxed, calibration)
+    context = checks.Context(design, data, main, relaxed, calibration, refits)
     interrupts.raise_if_interrupted()
     say("running checks")
     # An assumption the table cannot inform is left unchecked, with the reason.

@@ -26,6 +26,8 @@ class Context:
     fit         the main fit (:class:`workbench.engine.Fit`)
     relaxed     fits of the relaxed models, by relaxation parameter name
     calibration the calibration result when ``--sbc`` ran, else None
+    refits      exact refits leaving units out (:class:`workbench.kfold.CrossValidation`)
+                where PSIS-LOO could not decide a relaxation, else None
     """
 
     design: Any
@@ -33,6 +35,7 @@ class Context:
     fit: Any
     relaxed: dict[str, Any] = field(default_factory=dict)
     calibration: Any = None
+    refits: Any = None
     extras: dict[str, Any] = field(default_factory=dict)
 
 
