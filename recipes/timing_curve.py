@@ -17,7 +17,8 @@ in the table), so the default prior on ``scale`` fits days, weeks or years
 alike; :func:`derived` reports timings back in the table's unit.
 
 Columns: ``cohort``, ``age``, ``exposed``, ``events`` (optional ``group``).
-Options: ``family``, ``eventual``, ``pooling`` and ``centred``.
+Options: ``family``, ``eventual``, ``pooling``, ``shape_by_group`` (each group
+its own curve shape, pooled as the scale) and ``centred``.
 
 References
 ----------
@@ -75,7 +76,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     eventual *= 1.0 - float(params.get("never", 0.0))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
-        params["shape"], [eventual],
+        cohorts.shapes_of(data, params, 1), [eventual],
         power=float(np.exp(params.get("curve_power", 0.0))),
         rho=float(params.get("overdispersion", 0.0)),
     )
@@ -93,7 +94,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     with pm.Model(coords=cohorts.coords(data)) as model:
         counts = cohorts.counts_container(data)
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
-        shape = prior("shape")
+        shape = cohorts.timing_shapes(data, options, prior, dims=())
         if options["eventual"] == "estimate":
             eventual = prior("eventual")
             seen = cohorts.observed_shares(data, counts)[0]
@@ -123,9 +124,9 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
     out = {"eventual share": np.asarray(posterior["share"], dtype=float).reshape(-1)}
     scale = np.asarray(posterior["scale_group"], dtype=float)
     scale = scale.reshape(scale.shape[0], -1)
-    shape = np.asarray(posterior["shape"], dtype=float).reshape(-1)
+    shape = cohorts.group_shapes(posterior, len(data.labels["group"]), 1)
     for g, label in enumerate(data.labels["group"]):
-        median = curves.quantile(options["family"], 0.5, scale[:, g], shape) * data.extra["age_ref"]
+        median = curves.quantile(options["family"], 0.5, scale[:, g], shape[:, g, 0]) * data.extra["age_ref"]
         out["median age" if len(data.labels["group"]) == 1 else f"median age ({label})"] = median
     return out
 
@@ -189,7 +190,7 @@ RECIPE = Recipe(
     summary="Units of a cohort have one event at a random age; some may never have it.",
     columns=cohorts.columns(
         Column("events", "units with the event by that age (cumulative, non-decreasing in age)")),
-    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.CENTRED),
+    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED),
     parameters=(
         *cohorts.TIMING_PARAMETERS,
         Parameter("eventual", "share of units that ever have the event (eventual=estimate)", "beta(1,1)"),
