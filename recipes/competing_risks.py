@@ -69,7 +69,10 @@ RESOLVE = Option(
 
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
     """Check the table (see :func:`workbench.cohorts.validate`)."""
-    return cohorts.validate(table, list(options["outcomes"]), options, NAME)
+    data = cohorts.validate(table, list(options["outcomes"]), options, NAME)
+    # What fixes one outcome's curve: its share, scale and shape.
+    data.extra["curve_parameters"] = 3
+    return data
 
 
 # --- the story in NumPy ---------------------------------------------------------------
@@ -255,6 +258,7 @@ RECIPE = Recipe(
             ),
             advice="Some units may never end: use --set resolve=estimate, or look for an outcome "
                    "that the table does not count.",
+            informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),
     ),

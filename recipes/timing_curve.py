@@ -58,7 +58,10 @@ EVENTUAL = Option(
 
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
     """Check the table (see :func:`workbench.cohorts.validate`)."""
-    return cohorts.validate(table, [OUTCOME], options, NAME)
+    data = cohorts.validate(table, [OUTCOME], options, NAME)
+    # What fixes the curve: scale and shape, and the eventual share when estimated.
+    data.extra["curve_parameters"] = 3 if options.get("eventual") == "estimate" else 2
+    return data
 
 
 # --- the story in NumPy -------------------------------------------------------------
@@ -216,6 +219,7 @@ RECIPE = Recipe(
             ),
             advice="Let a share of units never have the event (--set eventual=estimate), or follow "
                    "the oldest cohorts longer before trusting the plateau.",
+            informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),
     ),

@@ -723,6 +723,28 @@ def cohorts_to_compare(data: Dataset) -> str:
     return "every group holds one cohort, so no cohort can differ from another of its group"
 
 
+def units_to_compare(data: Dataset) -> str:
+    """Why the table cannot show units of a cohort varying together ("" when it can)."""
+    if data.extra["cohort_exposed"].max() >= 2:
+        return ""
+    return "every cohort holds one unit, so no units of a cohort can vary together"
+
+
+def ages_to_compare(data: Dataset) -> str:
+    """Why the table cannot show a curve departing from its family ("" when it can).
+
+    ``data.extra["curve_parameters"]`` counts what fixes one outcome's curve
+    (scale, shape and, where free, its share); through that many ages some
+    curve of the family passes exactly.
+    """
+    ages = len(np.unique(data["age"][data["age"] > 0]))
+    needed = int(data.extra.get("curve_parameters", 2))
+    if ages > needed:
+        return ""
+    return (f"the table holds {ages} age(s) above 0, and a curve with {needed} parameters passes "
+            f"through that many exactly")
+
+
 def shared_assumptions(build_model) -> tuple[Assumption, ...]:
     """curve_shape, cohort_homogeneity and independent_units, with statistics and relaxations."""
     return (
@@ -742,6 +764,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Try another family (--set family=...) or a curve with one more shape parameter; "
                    "look at where the residuals bend.",
+
+            informed_by=ages_to_compare,
         ),
         Assumption(
             key="cohort_homogeneity",
@@ -778,5 +802,7 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
                    "site, a day); model it as an effect or use the overdispersed likelihood.",
+
+            informed_by=units_to_compare,
         ),
     )
