@@ -63,6 +63,8 @@ class CheckRun:
     started: str = ""
     seconds: float = 0.0
     versions: dict[str, str] = field(default_factory=versions)
+    # Exact refits where PSIS-LOO could not decide a relaxation (kfold.CrossValidation).
+    refits: Any = None
 
 
 # Compiled models of this process, by design, relaxation and data layout:
@@ -240,7 +242,7 @@ def run_check(
     declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
     judged = verdicts.decide(declared, findings, uninformed)
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
-                    context.extras, calibration, started, time.perf_counter() - start)
+                    context.extras, calibration, started, time.perf_counter() - start, refits=refits)
 
 
 # Derived quantities are shown with their central 90% interval.
