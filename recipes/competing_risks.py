@@ -15,7 +15,8 @@ at the last look) by one multinomial draw.
 
 Columns: ``cohort``, ``age``, ``exposed`` and one cumulative count column per
 outcome (optional ``group``). Options: ``outcomes`` (the count columns, comma
-separated, at least two), ``family``, ``resolve``, ``pooling``, ``centred``.
+separated, at least two), ``family``, ``resolve``, ``pooling``, ``shape_by_group``,
+``centred``.
 Ages enter the model relative to the median positive age, as in
 ``timing-curve``.
 
@@ -70,8 +71,12 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     """Check the table: one row per unit when it has a ``time`` column
     (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
     if units.is_unit_table(table):
-        return units.validate(table, list(options["outcomes"]), options, NAME)
-    return cohorts.validate(table, list(options["outcomes"]), options, NAME)
+        data = units.validate(table, list(options["outcomes"]), options, NAME)
+    else:
+        data = cohorts.validate(table, list(options["outcomes"]), options, NAME)
+    # What fixes one outcome's curve: its share, scale and shape.
+    data.extra["curve_parameters"] = 3
+    return data
 
 
 # --- the story in NumPy ---------------------------------------------------------------
@@ -101,7 +106,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
                               power=float(np.exp(params.get("curve_power", 0.0))))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
-        np.asarray(params["shape"], dtype=float).reshape(-1), _shares(params, k),
+        cohorts.shapes_of(data, params, k), _shares(params, k),
         power=float(np.exp(params.get("curve_power", 0.0))),
         rho=float(params.get("overdispersion", 0.0)),
     )
@@ -125,7 +130,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     with pm.Model(coords=model_coords) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
-        shape = prior("shape", dims="outcome")
+        shape = cohorts.timing_shapes(data, options, prior, dims=("outcome",))
         logit = prior("share_logit", dims="part")
         # Chains start at the shares the cohorts show (outcomes, then open).
         seen = cohorts.observed_shares(data, counts)
@@ -167,11 +172,11 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
         out["share open for good"] = np.asarray(posterior["open_share"], dtype=float).reshape(-1)
     scale = np.asarray(posterior["scale_group"], dtype=float)
     scale = scale.reshape(scale.shape[0], len(data.labels["group"]), len(outcomes))
-    shape = np.asarray(posterior["shape"], dtype=float)
+    shape = cohorts.group_shapes(posterior, len(data.labels["group"]), len(outcomes))
     for g, label in enumerate(data.labels["group"]):
         suffix = "" if len(data.labels["group"]) == 1 else f", {label}"
         for j, name in enumerate(outcomes):
-            median = curves.quantile(options["family"], 0.5, scale[:, g, j], shape[:, j])
+            median = curves.quantile(options["family"], 0.5, scale[:, g, j], shape[:, g, j])
             out[f"median age {name}{suffix}"] = median * data.extra["age_ref"]
     return out
 
@@ -239,7 +244,7 @@ RECIPE = Recipe(
     columns=cohorts.columns(
         Column("<outcome>", "one column per outcome named in 'outcomes': units ended that way by "
                             "that age (cumulative)")),
-    options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.CENTRED),
+    options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED),
     parameters=(
         *cohorts.TIMING_PARAMETERS,
         # Log-odds against the first outcome: sd 1.5 keeps a share between
@@ -269,6 +274,7 @@ RECIPE = Recipe(
             ),
             advice="Some units may never end: use --set resolve=estimate, or look for an outcome "
                    "that the table does not count.",
+            informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),
     ),

@@ -144,15 +144,37 @@ POOLING = Option(
 # --- validation ------------------------------------------------------------------------
 
 
+def _steps_seen(data: Dataset) -> int:
+    """Steps between periods the table shows: stage counts one between consecutive
+    periods, transition counts one per period."""
+    periods = len(np.unique(data["period"]))
+    return periods if data.extra.get("layout") == TRANSITION_COUNTS else periods - 1
+
+
 def periods_to_compare(data: Dataset) -> str:
     """Why the table cannot show a drift over periods ("" when it can)."""
-    # A drift needs moves seen over at least two steps: stage counts show a
-    # step between consecutive periods, transition counts one per period.
-    periods = len(np.unique(data["period"]))
-    steps = periods if data.extra.get("layout") == TRANSITION_COUNTS else periods - 1
-    if steps >= 2:
+    # A drift needs moves seen over at least two steps.
+    if _steps_seen(data) >= 2:
         return ""
     return "the table follows its units over a single step between periods, so nothing can drift"
+
+
+def steps_to_follow(data: Dataset) -> str:
+    """Why the table cannot show units that fall silent ("" when it can)."""
+    # Over one step a unit that fell silent stays in its stage like one that
+    # stayed: the dormant share and the stay probability are one number.
+    if _steps_seen(data) >= 2:
+        return ""
+    return ("the table follows its units over a single step between periods, so a unit that fell "
+            "silent cannot be told from one that stayed")
+
+
+def movers_to_compare(data: Dataset) -> str:
+    """Why the table cannot show units moving together ("" when it can)."""
+    # Units move together only where a step has two of them to move.
+    if movers(data).max(initial=0) >= 2:
+        return ""
+    return "no step has more than one unit to move, so no units can move together"
 
 
 def allowed_moves(stages, absorbing, moves) -> np.ndarray:
@@ -948,6 +970,8 @@ RECIPE = Recipe(
                                   null=0.0, negligible=0.01, planted=0.05),
             advice="Units stop moving without reaching an end stage: add the missing exit as an end "
                    "stage (e.g. 'inactive') or record when units are lost to follow-up.",
+
+            informed_by=steps_to_follow,
         ),
         Assumption(
             key="time_homogeneity",
@@ -974,6 +998,8 @@ RECIPE = Recipe(
                                   null=0.0, negligible=0.005, planted=0.05, absorbs_misfit=True),
             advice="Counts vary more than multinomial: units move in batches; model a cohort-period "
                    "effect or use the overdispersed likelihood.",
+
+            informed_by=movers_to_compare,
         ),
     ),
     validate=validate,

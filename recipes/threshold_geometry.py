@@ -261,6 +261,24 @@ def distances_to_compare(data) -> str:
     return "the table holds fewer than three distances, so no trend with distance can show"
 
 
+def two_distances_needed(data) -> str:
+    """Why the table cannot tell another failure from the aim's ("" when it can)."""
+    # At one distance a constant extra failure and a wider spread give the
+    # same success rate: only the change of the rate with distance parts them.
+    if len(np.unique(data["distance"])) >= 2:
+        return ""
+    return ("the table holds one distance, where a failure that is not the aim's cannot be told "
+            "from a wider spread")
+
+
+def rows_to_compare(data) -> str:
+    """Why the table cannot show rows varying more than binomial ("" when it can)."""
+    # One row is matched exactly by the fitted rate: no spread is left to judge.
+    if data.rows >= 2:
+        return ""
+    return "the table holds one row, which the fitted rate matches exactly"
+
+
 def _relaxation(parameter, meaning, null, negligible, planted, absorbs_misfit=False):
     return Relaxation(
         parameter=parameter,
@@ -371,6 +389,8 @@ RECIPE = Recipe(
             ),
             advice="Add a failure mode that does not depend on the angle (a constant or "
                    "distance-dependent extra failure probability) and ask what causes it.",
+
+            informed_by=two_distances_needed,
         ),
         Assumption(
             key="independent_attempts",
@@ -389,6 +409,8 @@ RECIPE = Recipe(
             ),
             advice="Rows vary more than binomial: add a row- or session-level effect "
                    "(beta-binomial or a random effect) or a group column for who attempted.",
+
+            informed_by=rows_to_compare,
         ),
     ),
     validate=validate,

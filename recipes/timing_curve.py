@@ -17,7 +17,8 @@ in the table), so the default prior on ``scale`` fits days, weeks or years
 alike; :func:`derived` reports timings back in the table's unit.
 
 Columns: ``cohort``, ``age``, ``exposed``, ``events`` (optional ``group``).
-Options: ``family``, ``eventual``, ``pooling`` and ``centred``.
+Options: ``family``, ``eventual``, ``pooling``, ``shape_by_group`` (each group
+its own curve shape, pooled as the scale) and ``centred``.
 
 References
 ----------
@@ -59,8 +60,12 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     """Check the table: one row per unit when it has a ``time`` column
     (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
     if units.is_unit_table(table):
-        return units.validate(table, None, options, NAME)
-    return cohorts.validate(table, [OUTCOME], options, NAME)
+        data = units.validate(table, None, options, NAME)
+    else:
+        data = cohorts.validate(table, [OUTCOME], options, NAME)
+    # What fixes the curve: scale and shape, and the eventual share when estimated.
+    data.extra["curve_parameters"] = 3 if options.get("eventual") == "estimate" else 2
+    return data
 
 
 # --- the story in NumPy -------------------------------------------------------------
@@ -82,7 +87,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
                               power=float(np.exp(params.get("curve_power", 0.0))))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
-        params["shape"], [eventual],
+        cohorts.shapes_of(data, params, 1), [eventual],
         power=float(np.exp(params.get("curve_power", 0.0))),
         rho=float(params.get("overdispersion", 0.0)),
     )
@@ -101,7 +106,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     with pm.Model(coords=units.coords(data) if unit else cohorts.coords(data)) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
-        shape = prior("shape")
+        shape = cohorts.timing_shapes(data, options, prior, dims=())
         if options["eventual"] == "estimate":
             eventual = prior("eventual")
             seen = cohorts.observed_shares(data, counts)[0]
@@ -152,9 +157,9 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
     out = {"eventual share": np.asarray(posterior["share"], dtype=float).reshape(-1)}
     scale = np.asarray(posterior["scale_group"], dtype=float)
     scale = scale.reshape(scale.shape[0], -1)
-    shape = np.asarray(posterior["shape"], dtype=float).reshape(-1)
+    shape = cohorts.group_shapes(posterior, len(data.labels["group"]), 1)
     for g, label in enumerate(data.labels["group"]):
-        median = curves.quantile(options["family"], 0.5, scale[:, g], shape) * data.extra["age_ref"]
+        median = curves.quantile(options["family"], 0.5, scale[:, g], shape[:, g, 0]) * data.extra["age_ref"]
         out["median age" if len(data.labels["group"]) == 1 else f"median age ({label})"] = median
     return out
 
@@ -223,7 +228,7 @@ RECIPE = Recipe(
     summary="Units of a cohort have one event at a random age; some may never have it.",
     columns=cohorts.columns(
         Column("events", "units with the event by that age (cumulative, non-decreasing in age)")),
-    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.CENTRED),
+    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED),
     parameters=(
         *cohorts.TIMING_PARAMETERS,
         Parameter("eventual", "share of units that ever have the event (eventual=estimate)", "beta(1,1)"),
@@ -253,6 +258,7 @@ RECIPE = Recipe(
             ),
             advice="Let a share of units never have the event (--set eventual=estimate), or follow "
                    "the oldest cohorts longer before trusting the plateau.",
+            informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),
         # Cohorts may differ in how many units ever have the event, not only in

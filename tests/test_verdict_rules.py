@@ -121,3 +121,40 @@ def test_calibration_fits_that_mostly_diverged_are_told_to_take_smaller_steps():
 def test_calibration_fits_that_failed_otherwise_are_not_told_to_take_smaller_steps():
     judgement = verdicts.judge(failures({"fit failed": 24}))
     assert judgement.level == 1 and "--target-accept" not in judgement.advice
+
+
+def judged_alone(share_beyond, prior_share, draws=1600):
+    from workbench.checks.relaxation import odds_ratio
+
+    finding = Finding("cohort_homogeneity", "relaxation", "relaxation:cohort_sd", 0.2, None, "expanded",
+                      {"parameter": "cohort_sd", "null": 0.0, "negligible": 0.05,
+                       "share_beyond": share_beyond, "interval": [0.01, 0.6], "elpd_diff": None,
+                       "elpd_se": None, "elpd_method": "parameter", "prior_share_beyond": prior_share,
+                       "odds_ratio": odds_ratio(share_beyond, prior_share, draws)})
+    return verdicts.judge(finding)
+
+
+def test_a_parameter_judged_alone_that_stays_where_its_prior_put_it_holds():
+    # halfnormal(0.3) puts 87% of its mass beyond 0.05: a posterior share of 90%
+    # from a table that says little is the prior speaking, not the data.
+    assert judged_alone(0.90, 0.87).level == 0
+
+
+def test_a_parameter_judged_alone_pushed_far_from_its_prior_breaks():
+    assert judged_alone(0.999, 0.87).level == 2
+
+
+def test_a_parameter_judged_alone_and_moved_moderately_is_doubtful():
+    assert judged_alone(0.97, 0.80).level == 1
+
+
+def test_with_few_units_the_se_of_the_refit_gain_does_not_decide():
+    # Three cohorts: a gain of 3 with a tiny SE is a sum of three terms, not a
+    # clear gain (Sivula et al. 2022); below the nested threshold it only leans.
+    finding = Finding("curve_shape", "relaxation", "relaxation:curve_power", 0.8, None, "expanded",
+                      {"parameter": "curve_power", "null": 0.0, "negligible": 0.1,
+                       "share_beyond": 1.0, "interval": [0.4, 1.2], "elpd_diff": 3.0,
+                       "elpd_se": 0.2, "elpd_method": "k-fold", "units": 3})
+    assert verdicts.judge(finding).level == 1
+    finding.numbers["elpd_diff"] = model_fit.NESTED_GAIN_BROKEN + 0.5
+    assert verdicts.judge(finding).level == 2

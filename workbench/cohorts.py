@@ -61,6 +61,13 @@ POOLING = Option(
     default="auto",
     choices=("auto", "none", "partial", "complete"),
 )
+SHAPE_BY_GROUP = Option(
+    "shape_by_group",
+    "true to let groups differ in curve shape as well as in timing scale (each group's shape "
+    "pooled as the scale is; default false: one shape for every group)",
+    parse=flag,
+    default=False,
+)
 CENTRED = Option(
     "centred",
     "true for the centred form of partial pooling (default false: non-centred)",
@@ -175,6 +182,11 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
         source_rows=[[int(i)] for i in order],
     )
     pooling = choose_pooling(options, len(group_labels))
+    if options.get("shape_by_group") and pooling == "complete":
+        raise DataError(
+            f"option 'shape_by_group=true' needs groups with their own timing: a 'group' column with "
+            f"at least two groups and pooling none or partial; found {len(group_labels)} group(s) "
+            f"and pooling {pooling}")
     data.extra.update(
         outcomes=list(outcomes),
         pooling=pooling,
@@ -274,31 +286,60 @@ def timing_scales(data: Dataset, options: dict, prior, dims: tuple, counts):
     ``("group", *dims)``; returns ``scale_group``. Chains start at the ages
     where the events in the ``counts`` container fell (:func:`event_ages`).
     """
+    return pooled_by_group(data, options, prior, "scale", dims, event_ages(data, counts))
+
+
+def timing_shapes(data: Dataset, options: dict, prior, dims: tuple):
+    """Curve shape: one ``shape`` (per outcome) for every group, or per group.
+
+    Under ``shape_by_group`` each group has its own shape, pooled as the
+    scale is (``shape_sd`` for partial pooling, the deterministic
+    ``shape_group``), returned as a (groups, K) tensor.
+    """
+    import pytensor.tensor as pt
+
+    if options.get("shape_by_group"):
+        group = pooled_by_group(data, options, prior, "shape", dims)
+        return pt.reshape(group, (len(data.labels["group"]), len(data.extra["outcomes"])))
+    return prior("shape", dims=dims or None)
+
+
+def pooled_by_group(data: Dataset, options: dict, prior, name: str, dims: tuple, typical=None):
+    """A positive parameter ``name`` per group (and outcome), pooled as ``pooling`` says.
+
+    Complete pooling: one ``name`` for all groups. None: ``name`` per group.
+    Partial: a typical ``name``, the sd of its log across groups
+    (``{name}_sd``) and a group offset on the log scale, centred or not.
+    Returns the deterministic ``{name}_group`` with dims ``("group", *dims)``;
+    chains start at ``typical`` when given.
+    """
     import pymc as pm
     import pytensor.tensor as pt
 
     pooling = data.extra["pooling"]
     n_groups = len(data.labels["group"])
     group_dims = ("group", *dims)
-    typical = event_ages(data, counts)
     if pooling == "complete":
-        scale = prior("scale", dims=dims or None)
-        engine.start_at(scale, typical, dims)
-        log_group = pt.broadcast_to(pt.log(scale), (n_groups, *pt.shape(scale)))
+        value = prior(name, dims=dims or None)
+        if typical is not None:
+            engine.start_at(value, typical, dims)
+        log_group = pt.broadcast_to(pt.log(value), (n_groups, *pt.shape(value)))
     elif pooling == "none":
-        scale = prior("scale", dims=group_dims)
-        engine.start_at(scale, pt.broadcast_to(typical, (n_groups, *typical.shape)), group_dims)
-        log_group = pt.log(scale)
+        value = prior(name, dims=group_dims)
+        if typical is not None:
+            engine.start_at(value, pt.broadcast_to(typical, (n_groups, *typical.shape)), group_dims)
+        log_group = pt.log(value)
     else:
-        scale = prior("scale", dims=dims or None)  # typical scale across groups
-        engine.start_at(scale, typical, dims)
-        spread = prior("scale_sd")  # sd of log scale across groups
+        value = prior(name, dims=dims or None)  # typical value across groups
+        if typical is not None:
+            engine.start_at(value, typical, dims)
+        spread = prior(f"{name}_sd")  # sd of its log across groups
         if options.get("centred"):
-            log_group = pm.Normal("log_scale_group", pt.log(scale), spread, dims=group_dims)
+            log_group = pm.Normal(f"log_{name}_group", pt.log(value), spread, dims=group_dims)
         else:
-            offset = pm.Normal("scale_offset", 0.0, 1.0, dims=group_dims)
-            log_group = pt.log(scale) + spread * offset
-    return pm.Deterministic("scale_group", pt.exp(log_group), dims=group_dims)
+            offset = pm.Normal(f"{name}_offset", 0.0, 1.0, dims=group_dims)
+            log_group = pt.log(value) + spread * offset
+    return pm.Deterministic(f"{name}_group", pt.exp(log_group), dims=group_dims)
 
 
 # --- starting values ---------------------------------------------------------------
@@ -345,6 +386,8 @@ def event_ages(data: Dataset, counts):
 def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, relax: str | None, prior):
     """Cumulative incidence per row and outcome (rows, K) as a PyTensor expression.
 
+    ``shape`` is what :func:`timing_shapes` returns.
+
     Adds the shared relaxations: ``curve_power`` (F ** exp(curve_power),
     the exponentiated family) and ``cohort_sd`` (a cohort effect on log scale).
     """
@@ -360,7 +403,9 @@ def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, rel
         effect = pm.Deterministic("cohort_effect", sd * z, dims="cohort")
         scale_row = scale_row * pt.exp(effect[data["cohort"]])[:, None]
     age = pt.constant(relative_age(data))[:, None]
-    f = curves.cdf_tensor(family, age, scale_row, pt.reshape(shape, (k,)))
+    # One shape per outcome, or (groups, K) under shape_by_group.
+    shape = shape[data["group"]] if shape.ndim == 2 else pt.reshape(shape, (k,))
+    f = curves.cdf_tensor(family, age, scale_row, shape)
     if relax == "curve_power":
         f = f ** pt.exp(prior("curve_power"))
     return pt.reshape(share, (k,)) * f
@@ -447,25 +492,40 @@ def scales_of(rng: np.random.Generator, data: Dataset, params: dict, k: int) -> 
     return group[data.extra["cohort_group"]] * np.exp(effect)[:, None]
 
 
+def shapes_of(data: Dataset, params: dict, k: int) -> np.ndarray:
+    """Curve shape per cohort and outcome (cohorts, K) from a parameter draw.
+
+    Reads ``shape_group`` when the draw has it, else ``shape``: one per
+    outcome, or one per group and outcome (``shape_by_group`` unpooled).
+    """
+    n_groups = len(data.labels["group"])
+    shape = np.asarray(params.get("shape_group", params["shape"]), dtype=float)
+    group = shape.reshape(n_groups, k) if shape.size == n_groups * k and shape.size != k \
+        else np.broadcast_to(shape.reshape(1, k), (n_groups, k))
+    return group[data.extra["cohort_group"]]
+
+
 def simulate_units(rng: np.random.Generator, data: Dataset, family: str, scales: np.ndarray,
                    shape, share, power: float = 1.0, rho: float = 0.0) -> np.ndarray:
     """Follow every unit of every cohort; return cumulative counts per row (rows, K).
 
     Each unit ends in outcome k with probability ``share_k`` (or never), at a
-    time drawn from family F_k with the cohort's scale; with ``power != 1``
+    time drawn from family F_k with the cohort's scale and shape (``shape``
+    per outcome, or per cohort and outcome as :func:`shapes_of` gives); with ``power != 1``
     the time follows F_k ** power (drawn by inverting U ** (1 / power)).
     With ``rho > 0`` the units of a cohort share one draw of the cell
     probabilities from a Dirichlet with concentration (1 / rho - 1): the
     Dirichlet-multinomial story of correlated units.
     """
     k = scales.shape[1]
-    shape = np.broadcast_to(np.asarray(shape, dtype=float), (k,))
+    shape = np.broadcast_to(np.asarray(shape, dtype=float), scales.shape)
     share = np.broadcast_to(np.asarray(share, dtype=float), (k,))
     out = np.zeros((data.rows, k), dtype=np.int64)
     ages = data["age"] / data.extra["age_ref"]
     if rho > 0:
         kappa = 1.0 / rho - 1.0
-        cumulative = share * curves.cdf(family, ages[:, None], scales[data["cohort"]], shape) ** power
+        cumulative = share * curves.cdf(family, ages[:, None], scales[data["cohort"]],
+                                        shape[data["cohort"]]) ** power
         p = cell_probabilities(data, cumulative)
         mask = real_cells(data)
         for c, n in enumerate(data.extra["cohort_exposed"]):
@@ -484,9 +544,9 @@ def simulate_units(rng: np.random.Generator, data: Dataset, family: str, scales:
             who = outcome == j
             m = int(who.sum())
             if power == 1.0:
-                times = curves.draw_times(rng, family, scales[c, j], shape[j], m)
+                times = curves.draw_times(rng, family, scales[c, j], shape[c, j], m)
             else:
-                times = curves.quantile(family, rng.random(m) ** (1.0 / power), scales[c, j], shape[j])
+                times = curves.quantile(family, rng.random(m) ** (1.0 / power), scales[c, j], shape[c, j])
             times = np.sort(times)
             out[rows, j] = np.searchsorted(times, ages[rows], side="right")
     return out
@@ -563,6 +623,15 @@ def cell_dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     return pearson_dispersion(y[:, mask], (n * p)[:, mask], (n * p * (1 - p))[:, mask])
 
 
+def group_shapes(posterior: dict, groups: int, k: int) -> np.ndarray:
+    """Posterior draws of the curve shape per group and outcome, (S, groups, K)."""
+    if "shape_group" in posterior:
+        shape = np.asarray(posterior["shape_group"], dtype=float)
+        return shape.reshape(shape.shape[0], groups, k)
+    shape = np.asarray(posterior["shape"], dtype=float)
+    return np.broadcast_to(shape.reshape(shape.shape[0], 1, k), (shape.shape[0], groups, k))
+
+
 # --- figure -----------------------------------------------------------------------------------
 
 
@@ -590,7 +659,7 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     s = scale.shape[0]
     pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
     scale = scale.reshape(s, len(data.labels["group"]), k)[pick]
-    shape = np.asarray(posterior["shape"], dtype=float).reshape(s, -1)[pick]
+    shape = group_shapes(posterior, len(data.labels["group"]), k)[pick]
     share = np.asarray(posterior["share"], dtype=float).reshape(s, -1)[pick]
     power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float))[pick]
     grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
@@ -607,7 +676,7 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     dodge = (np.arange(k) - (k - 1) / 2) * 0.008 * grid[-1]
     outside = total = 0
     for g, ax in enumerate(axes[0]):
-        f = curves.cdf(family, rel[None, :, None], scale[:, None, g, :], shape[:, None, :])
+        f = curves.cdf(family, rel[None, :, None], scale[:, None, g, :], shape[:, None, g, :])
         stacked = np.cumsum(share[:, None, :] * f ** power[:, None, None], axis=-1)
         lo, mid, hi = np.percentile(stacked, [5, 50, 95], axis=0)
         rows = data["group"] == g
@@ -666,6 +735,9 @@ TIMING_PARAMETERS = (
     # Median 1.35, 95% between 0.4 and 4.4: from spread-out to bunched timing.
     Parameter("shape", "shape of the timing curve (per outcome; larger: ages bunched more tightly)",
               "lognormal(0.3,0.6)"),
+    # As for the scale: groups' shapes mostly within a factor of about e of each other.
+    Parameter("shape_sd", "sd of log shape across groups (partial pooling, shape_by_group=true)",
+              "halfnormal(0.5)"),
 )
 RELAXATION_PARAMETERS = (
     Parameter("curve_power", "log exponent of the exponentiated family F ** exp(curve_power)", "normal(0,0.5)"),
@@ -692,6 +764,34 @@ def cohorts_to_compare(data: Dataset) -> str:
     return "every group holds one cohort, so no cohort can differ from another of its group"
 
 
+def units_to_compare(data: Dataset) -> str:
+    """Why the table cannot show units of a cohort varying together ("" when it can)."""
+    if data.extra["cohort_exposed"].max() >= 2:
+        return ""
+    return "every cohort holds one unit, so no units of a cohort can vary together"
+
+
+def independence_to_check(data: Dataset) -> str:
+    """Why ``independent_units`` cannot be checked on this table ("" when it can)."""
+    return units.no_independence_check(data) or (
+        "" if units.is_units(data) else units_to_compare(data))
+
+
+def ages_to_compare(data: Dataset) -> str:
+    """Why the table cannot show a curve departing from its family ("" when it can).
+
+    ``data.extra["curve_parameters"]`` counts what fixes one outcome's curve
+    (scale, shape and, where free, its share); through that many ages some
+    curve of the family passes exactly.
+    """
+    ages = len(np.unique(data["age"][data["age"] > 0]))
+    needed = int(data.extra.get("curve_parameters", 2))
+    if ages > needed:
+        return ""
+    return (f"the table holds {ages} age(s) above 0, and a curve with {needed} parameters passes "
+            f"through that many exactly")
+
+
 def shared_assumptions(build_model) -> tuple[Assumption, ...]:
     """curve_shape, cohort_homogeneity and independent_units, with statistics and relaxations."""
     return (
@@ -712,6 +812,8 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Try another family (--set family=...) or a curve with one more shape parameter; "
                    "look at where the residuals bend.",
+
+            informed_by=ages_to_compare,
         ),
         Assumption(
             key="cohort_homogeneity",
@@ -749,6 +851,6 @@ def shared_assumptions(build_model) -> tuple[Assumption, ...]:
             ),
             advice="Counts vary more than multinomial: units of a cohort share something (a batch, a "
                    "site, a day); model it as an effect or use the overdispersed likelihood.",
-            informed_by=units.no_independence_check,
+            informed_by=independence_to_check,
         ),
     )

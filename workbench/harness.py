@@ -19,7 +19,7 @@ from datetime import datetime, timezone
 from importlib import metadata
 from typing import Any, Callable
 
-from workbench import checks, engine, estimates, executor, interrupts, revisions, verdicts
+from workbench import checks, engine, estimates, executor, interrupts, kfold, revisions, verdicts
 from workbench.checks.computation import computation_summary
 from workbench.findings import Finding
 from workbench.progress import Progress
@@ -65,6 +65,8 @@ class CheckRun:
     started: str = ""
     seconds: float = 0.0
     versions: dict[str, str] = field(default_factory=versions)
+    # Exact refits where PSIS-LOO could not decide a relaxation (kfold.CrossValidation).
+    refits: Any = None
 
 
 # Compiled models of this process, by design, relaxation and data layout:
@@ -285,6 +287,24 @@ class EarlyHelper:
         self.pool.shutdown(wait=False, cancel_futures=True)
 
 
+def refit_where_psis_fails(design, data, main: engine.Fit, relaxed: dict[str, engine.Fit], seed: int,
+                           settings: engine.Settings, say: Callable[[str], None]) -> kfold.CrossValidation:
+    """Exact refits for the relaxations whose PSIS-LOO difference cannot decide (see :mod:`workbench.kfold`).
+
+    Only a relaxation whose parameter leaves its null often enough for the
+    verdict rule to read the elpd difference is refitted.
+    """
+    from workbench.checks.relaxation import share_beyond
+    from workbench.rules.model_fit import SHARE_BEYOND_DOUBTFUL
+
+    if not relaxed:
+        return kfold.CrossValidation()
+    by_parameter = {a.relaxation.parameter: a.relaxation for a in design.assumptions if a.relaxation}
+    pull = {p: share_beyond(by_parameter[p], fit) for p, fit in relaxed.items() if p in by_parameter}
+    return kfold.refit_untrusted(design, data, main, relaxed, seed, settings, pull,
+                                 SHARE_BEYOND_DOUBTFUL, say)
+
+
 def run_check(
     design,
     data,
@@ -308,7 +328,7 @@ def run_check(
     """
     start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
-    seeds = engine.seed_stream(seed, "main", "relaxations", "revisions")
+    seeds = engine.seed_stream(seed, "main", "relaxations", "revisions", "refits")
     helper = (EarlyHelper() if EarlyHelper.wanted(len(relaxation_names(design, data)), workers, relax)
               else None)
     try:
@@ -321,8 +341,9 @@ def run_check(
     finally:
         if helper is not None:
             helper.close()
+    refits = refit_where_psis_fails(design, data, main, relaxed, seeds["refits"], settings, say)
     calibration = calibrate() if calibrate else None
-    context = checks.Context(design, data, main, relaxed, calibration, revisions=revised)
+    context = checks.Context(design, data, main, relaxed, calibration, refits, revisions=revised)
     interrupts.raise_if_interrupted()
     say("running checks")
     # An assumption the table cannot inform is left unchecked, with the reason.
@@ -339,7 +360,7 @@ def run_check(
     for record in revised:
         record["before"]["verdict"] = next(v.verdict for v in judged if v.key == record["assumption"])
     return CheckRun(design, data, data_info, seed, settings, main, relaxed, findings, judged,
-                    context.extras, calibration, started, time.perf_counter() - start)
+                    context.extras, calibration, started, time.perf_counter() - start, refits=refits)
 
 
 # Derived quantities are shown with their central 90% interval.

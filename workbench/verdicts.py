@@ -79,6 +79,7 @@ class Verdict:
                     "value": _num(f.value),
                     "p_value": _num(f.p_value),
                     "detail": f"{f.detail} {j.sentence}".strip(),
+                    **_elpd_source(f),
                 }
                 for f, j in self.evidence
             ],
@@ -91,6 +92,15 @@ class Verdict:
         if self.confirmed_with:
             doc["confirmed_with"] = list(self.confirmed_with)
         return doc
+
+
+def _elpd_source(f: Finding) -> dict:
+    """Where a relaxation's elpd difference came from and why: {} for other evidence."""
+    method = f.numbers.get("elpd_method") if f.kind == "relaxation" else None
+    if not method:
+        return {}
+    return {"elpd_method": method,
+            "why": "; ".join(w for w in (f.numbers.get("why_not_psis"), f.numbers.get("why_no_refits")) if w)}
 
 
 def _num(x):

@@ -28,6 +28,8 @@ class Context:
     calibration the calibration result when ``--sbc`` ran, else None
     revisions   the revisions fitted (:func:`workbench.revisions.revise`), as
                 plain records
+    refits      exact refits leaving units out (:class:`workbench.kfold.CrossValidation`)
+                where PSIS-LOO could not decide a relaxation, else None
     """
 
     design: Any
@@ -35,6 +37,7 @@ class Context:
     fit: Any
     relaxed: dict[str, Any] = field(default_factory=dict)
     calibration: Any = None
+    refits: Any = None
     extras: dict[str, Any] = field(default_factory=dict)
     revisions: list[dict] = field(default_factory=list)
 

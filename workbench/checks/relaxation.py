@@ -11,7 +11,14 @@ Gelman, A., Vehtari, A., Simpson, D. et al. (2020). Bayesian workflow.
 arXiv:2011.01808, section 6.3 (continuous model expansion).
 Vehtari, A., Gelman, A. and Gabry, J. (2017). Practical Bayesian model
 evaluation using leave-one-out cross-validation and WAIC. Statistics and
-Computing 27, 1413-1432 (elpd differences and their standard errors).
+Computing 27, 1413-1432 (elpd differences and their standard errors; exact
+refits where PSIS fails).
+
+The elpd difference comes from PSIS-LOO when there are enough units and
+every Pareto k is good; otherwise from the exact refits of
+:mod:`workbench.kfold` when they ran, and otherwise the relaxation is judged
+by its parameter alone, against the same parameter under its prior. The
+finding says which and why (``elpd_method``, ``why_not_psis``).
 """
 
 from __future__ import annotations
@@ -19,7 +26,8 @@ from __future__ import annotations
 import numpy as np
 
 from workbench.checks import Context, check
-from workbench.checks.loo import loo_of, loo_terms
+from workbench import kfold
+from workbench.checks.loo import loo_numbers, loo_of, loo_terms
 from workbench.checks.predictive import discrepancies
 from workbench.findings import COMPUTATION, Finding
 from workbench.statistics import predictive_p_value
@@ -36,6 +44,16 @@ def pointwise_gain(expanded, original) -> np.ndarray:
     """Pointwise elpd of the expanded fit minus the original's (PSIS-LOO, paired rows)."""
     a, b = loo_of(expanded), loo_of(original)
     return np.asarray(a.elpd_i, dtype=float).ravel() - np.asarray(b.elpd_i, dtype=float).ravel()
+
+
+def unit_word(data, n_terms: int) -> str:
+    """What one pointwise LOO term is in the table's words: a label column (``cohort``) or ``row``."""
+    columns = getattr(data, "columns", {}) or {}
+    for name, levels in (getattr(data, "labels", {}) or {}).items():
+        if len(levels) == n_terms and len(levels) > 1 and name in columns \
+                and np.asarray(columns[name]).size != n_terms:
+            return name
+    return "row"
 
 
 def term_labels(design, data, n_terms: int) -> list[str]:
@@ -63,35 +81,111 @@ def contributors(gain: np.ndarray, labels: list[str]) -> list[dict]:
     return out
 
 
-def relaxation_finding(assumption, relaxation, expanded, original, labels=None) -> Finding:
+def share_beyond(relaxation, fit) -> float:
+    """Share of the expansion parameter's posterior draws beyond ``negligible`` of its null."""
+    draws = fit.draws([relaxation.parameter])[relaxation.parameter].ravel()
+    return float(np.mean(np.abs(draws - relaxation.null) > relaxation.negligible))
+
+
+# Prior draws of an expansion parameter when it is judged alone: the share
+# beyond its negligible distance is then known to about +-0.01.
+PRIOR_DRAWS = 4000
+
+
+def prior_share_beyond(design, data, relaxation, seed: int = 0) -> float:
+    """The same share under the parameter's prior (forward draws of the relaxed model)."""
+    import pymc as pm
+
+    model = design.build(data, relaxation)
+    draws = np.asarray(pm.draw(model[relaxation.parameter], draws=PRIOR_DRAWS, random_seed=seed))
+    return float(np.mean(np.abs(draws.reshape(PRIOR_DRAWS, -1) - relaxation.null) > relaxation.negligible))
+
+
+def odds_ratio(posterior_share: float, prior_share: float, draws: int) -> float:
+    """Posterior over prior odds of lying beyond the negligible distance (a Bayes factor).
+
+    Half a draw is added to each side of both shares so that a share of 0 or 1
+    from finitely many draws gives a finite ratio.
+    """
+    def odds(share, n):
+        return (share * n + 0.5) / ((1.0 - share) * n + 0.5)
+
+    return float(odds(posterior_share, draws) / odds(prior_share, PRIOR_DRAWS))
+
+
+def _plural(word: str, n: int) -> str:
+    return word if n == 1 else f"{word}s"
+
+
+def relaxation_finding(assumption, relaxation, expanded, original, labels=None, refits=None,
+                       unit: str = "row", prior_share=None) -> Finding:
+    """The expansion parameter against its null and the elpd difference that may decide.
+
+    ``refits`` is the run's :class:`workbench.kfold.CrossValidation` (None:
+    no refits ran); ``prior_share()`` gives the parameter's share beyond the
+    negligible distance under its prior, asked only when the parameter is
+    judged alone.
+    """
     draws = expanded.draws([relaxation.parameter])[relaxation.parameter].ravel()
-    beyond = float(np.mean(np.abs(draws - relaxation.null) > relaxation.negligible))
+    beyond = share_beyond(relaxation, expanded)
     lo, mid, hi = np.percentile(draws, [5, 50, 95])
-    gain = pointwise_gain(expanded, original)
-    diff, se = float(gain.sum()), float(np.sqrt(gain.size * np.var(gain)))
-    labels = labels or [f"row {i + 1}" for i in range(gain.size)]
+    psis_gain = pointwise_gain(expanded, original)
+    psis_diff, psis_se = float(psis_gain.sum()), float(np.sqrt(psis_gain.size * np.var(psis_gain)))
+    units = int(psis_gain.size)
+    labels = labels or [f"row {i + 1}" for i in range(units)]
+    base_loo, relaxed_loo = loo_numbers(original), loo_numbers(expanded)
+    high = len(set(base_loo["bad_pareto_k"]) | set(relaxed_loo["bad_pareto_k"]))
+    doubt = kfold.why_not_psis(units, high, base_loo["k_threshold"], unit)
+    refits = refits or kfold.CrossValidation()
+    numbers = {
+        "parameter": relaxation.parameter,
+        "null": relaxation.null,
+        "negligible": relaxation.negligible,
+        "share_beyond": beyond,
+        "interval": [float(lo), float(hi)],
+        "units": units,
+        "psis_elpd_diff": psis_diff,
+        "psis_elpd_se": psis_se,
+        "why_not_psis": doubt,
+        "absorbs_misfit": bool(relaxation.absorbs_misfit),
+    }
+    head = (f"Expanded model ({relaxation.meaning}): {relaxation.parameter} median {mid:.3g}, "
+            f"90% interval {lo:.3g} to {hi:.3g} (null {relaxation.null:g}); "
+            f"{beyond:.0%} of draws lie beyond ±{relaxation.negligible:g} of the null; ")
+    if not doubt:
+        gain, method = psis_gain, "psis-loo"
+        tail = (f"elpd difference {psis_diff:+.1f} (SE {psis_se:.1f}) by PSIS-LOO over {units} "
+                f"{_plural(unit, units)}.")
+    elif refits.base is not None and relaxation.parameter in refits.relaxed:
+        done = refits.relaxed[relaxation.parameter]
+        gain, method = done.pointwise - refits.base.pointwise, "k-fold"
+        how = (f"leaving out each of the {units} {_plural(unit, units)} in turn" if done.folds == units
+               else f"in {done.folds} folds of the {units} {_plural(unit, units)}")
+        numbers["folds"] = done.folds
+        tail = (f"elpd difference {gain.sum():+.1f} (SE {np.sqrt(gain.size * np.var(gain)):.1f}) from "
+                f"exact refits {how}, not PSIS-LOO: {doubt}.")
+    else:
+        gain, method = None, "parameter"
+        prior = float(prior_share()) if prior_share is not None else float("nan")
+        ratio = odds_ratio(beyond, prior, draws.size)
+        why = refits.skipped.get(relaxation.parameter, "no refits ran")
+        numbers.update(prior_share_beyond=prior, odds_ratio=ratio, why_no_refits=why)
+        tail = (f"judged by {relaxation.parameter} alone ({prior:.0%} of its prior draws lie beyond "
+                f"±{relaxation.negligible:g}, so the data moved the odds by {ratio:.3g} times), not by "
+                f"an elpd difference: PSIS-LOO cannot decide ({doubt}) and no exact refits ran ({why}).")
+    numbers["elpd_method"] = method
+    if gain is None:
+        numbers.update(elpd_diff=None, elpd_se=None, contributors=[])
+    else:
+        numbers.update(elpd_diff=float(gain.sum()), elpd_se=float(np.sqrt(gain.size * np.var(gain))),
+                       contributors=contributors(gain, labels))
     return Finding(
         assumption=assumption.key,
         kind="relaxation",
         check=f"relaxation:{relaxation.parameter}",
         value=float(mid),
-        detail=(
-            f"Expanded model ({relaxation.meaning}): {relaxation.parameter} median {mid:.3g}, "
-            f"90% interval {lo:.3g} to {hi:.3g} (null {relaxation.null:g}); "
-            f"{beyond:.0%} of draws lie beyond ±{relaxation.negligible:g} of the null; "
-            f"elpd difference {diff:+.1f} (SE {se:.1f})."
-        ),
-        numbers={
-            "parameter": relaxation.parameter,
-            "null": relaxation.null,
-            "negligible": relaxation.negligible,
-            "share_beyond": beyond,
-            "interval": [float(lo), float(hi)],
-            "elpd_diff": diff,
-            "elpd_se": se,
-            "absorbs_misfit": bool(relaxation.absorbs_misfit),
-            "contributors": contributors(gain, labels),
-        },
+        detail=head + tail,
+        numbers=numbers,
         figure=f"relaxation-{assumption.key}",
     )
 
@@ -99,7 +193,7 @@ def relaxation_finding(assumption, relaxation, expanded, original, labels=None) 
 @check
 def relaxations(context: Context) -> list[Finding]:
     findings = []
-    labels = None
+    labels = unit = None
     for assumption in context.design.assumptions:
         relaxation = assumption.relaxation
         # Without a relaxed fit there is no pointwise gain to split into rows,
@@ -110,9 +204,11 @@ def relaxations(context: Context) -> list[Finding]:
         if labels is None:
             n_terms = np.asarray(loo_of(context.fit).elpd_i).size
             labels = term_labels(context.design, context.data, n_terms)
+            unit = unit_word(context.data, n_terms)
         findings.append(
             relaxation_finding(assumption, relaxation, context.relaxed[relaxation.parameter],
-                               context.fit, labels)
+                               context.fit, labels, context.refits, unit,
+                               lambda r=relaxation: prior_share_beyond(context.design, context.data, r))
         )
     return findings
 

@@ -8,6 +8,8 @@ cross-validation and Akaike's criterion. JRSS B 39(1), 44-47 (from memory).
 Sivula, T., Magnusson, M., Matamoros, A. A. and Vehtari, A. (2022).
 Uncertainty in Bayesian leave-one-out cross-validation based model comparison.
 arXiv:2008.10296.
+Kass, R. E. and Raftery, A. E. (1995). Bayes factors. JASA 90(430), 773-795
+(section 3.2: a Bayes factor above 3 is positive evidence, above 20 strong).
 """
 
 from __future__ import annotations
@@ -15,6 +17,7 @@ from __future__ import annotations
 import math
 
 from workbench.findings import COMPUTATION, PRIORS, Finding
+from workbench.kfold import MIN_LOO_UNITS
 from workbench.rules.computation import RHAT_BROKEN
 from workbench.verdicts import BROKEN, DOUBTFUL, Judgement, Verdict, rule, settle
 from workbench.wording import p_equals
@@ -43,6 +46,18 @@ ELPD_FLOOR = 2.0
 # reliable exactly when the two models predict alike (Sivula et al. 2022),
 # and 4 is also where they stop calling a difference small.
 NESTED_GAIN_BROKEN = 4.0
+# With fewer than MIN_LOO_UNITS units (the elpd difference then comes from
+# exact refits) the SE of a sum of a handful of terms means nothing (Sivula
+# et al. 2022): the gain alone must pass NESTED_GAIN_BROKEN to be clear, and
+# ELPD_FLOOR to count as a lean.
+
+# Where no elpd difference can be trusted, the parameter is judged alone: the
+# posterior odds of lying beyond the negligible distance over the prior odds
+# (a Bayes factor for "beyond" against "within") must show that the data, not
+# the prior, put the mass there. A prior like beta(1,30) already holds 86% of
+# its mass beyond 0.005, so a share alone would flag every small table.
+ODDS_RATIO_BROKEN = 20.0  # strong evidence (Kass and Raftery 1995)
+ODDS_RATIO_DOUBTFUL = 3.0  # positive evidence (Kass and Raftery 1995)
 
 
 @rule("ppc")
@@ -63,18 +78,37 @@ def targeted_statistic(f: Finding) -> Judgement:
 @rule("relaxation")
 def expansion(f: Finding) -> Judgement:
     n = f.numbers
+    if n.get("elpd_method") == "parameter":
+        return _parameter_alone(n)
     share, diff, se = n["share_beyond"], n["elpd_diff"], n["elpd_se"]
-    better = diff > max(ELPD_SE_MULTIPLE * se, ELPD_FLOOR) or diff > NESTED_GAIN_BROKEN
+    if n.get("units", MIN_LOO_UNITS) < MIN_LOO_UNITS:
+        better, leans = diff > NESTED_GAIN_BROKEN, diff > ELPD_FLOOR
+    else:
+        better = diff > max(ELPD_SE_MULTIPLE * se, ELPD_FLOOR) or diff > NESTED_GAIN_BROKEN
+        leans = better or diff > se
     strength = max(diff, 0.0) / max(se, 1.0)
     name = n["parameter"]
     if share >= SHARE_BEYOND_BROKEN and better:
         return Judgement(
             2, f"The data pull {name} away from its null and the expanded model predicts "
                f"held-out rows clearly better.", strength=strength + 3.0)
-    if share >= SHARE_BEYOND_DOUBTFUL and (better or diff > se):
+    if share >= SHARE_BEYOND_DOUBTFUL and leans:
         return Judgement(1, f"The data lean towards a non-null {name}; the gain in prediction "
                             f"is modest.", strength=strength)
     return Judgement(0, f"The expanded model does not need {name} away from its null.")
+
+
+def _parameter_alone(n: dict) -> Judgement:
+    share, ratio, name = n["share_beyond"], n["odds_ratio"], n["parameter"]
+    strength = math.log10(max(ratio, 1.0))
+    if share >= SHARE_BEYOND_BROKEN and ratio >= ODDS_RATIO_BROKEN:
+        return Judgement(2, f"The data, not its prior, pull {name} away from its null.",
+                         strength=strength + 3.0)
+    if share >= SHARE_BEYOND_DOUBTFUL and ratio >= ODDS_RATIO_DOUBTFUL:
+        return Judgement(1, f"The data lean towards a non-null {name}, more than its prior does.",
+                         strength=strength)
+    return Judgement(0, f"The data do not pull {name} from its null beyond what its prior "
+                        f"allows.")
 
 
 # Broken sampling of the base model is a symptom of the cause when the
@@ -106,7 +140,9 @@ def prior_tail_under_relaxation(f: Finding) -> Judgement:
 
 
 def _relaxation_gain(verdict: Verdict) -> float | None:
-    gains = [f.numbers["elpd_diff"] for f, _ in verdict.evidence if f.kind == "relaxation"]
+    # A relaxation judged by its parameter alone has no gain it can be ranked by.
+    gains = [f.numbers["elpd_diff"] for f, _ in verdict.evidence
+             if f.kind == "relaxation" and f.numbers.get("elpd_diff") is not None]
     return max(gains) if gains else None
 
 
