@@ -63,3 +63,19 @@ def test_the_helper_starts_only_with_two_relaxed_models_a_second_core_and_defaul
     assert not harness.EarlyHelper.wanted(1, None, True)
     assert not harness.EarlyHelper.wanted(3, 1, True)
     assert not harness.EarlyHelper.wanted(3, None, False)
+
+
+@pytest.mark.skipif(executor.cores() < 2, reason="the early helper needs a second core")
+def test_a_default_check_shares_its_relaxed_models_with_the_helper(tmp_path):
+    # The default path as a user runs it: api.check with no workers argument.
+    import numpy as np
+
+    from workbench import api, engine, registry
+
+    scenario = registry.load().get("threshold-geometry").demo(np.random.default_rng(4))
+    table = tmp_path / "table.csv"
+    scenario.table.to_csv(table, index=False)
+    said = []
+    api.check("threshold-geometry", str(table), options=dict(scenario.options),
+              settings=engine.Settings(draws=100, tune=100, chains=2), write=False, say=said.append)
+    assert any("in this process and one helper" in line for line in said), said

@@ -155,14 +155,22 @@ def fit_relaxations(design, data, seed: int, settings: engine.Settings, workers:
     processes (1: this one). Each expanded model is compiled once where it
     runs. Seeds derive from the run seed and the parameter name, so results
     do not depend on scheduling. ``progress`` counts finished models on
-    standard error (a bar on a terminal, plain lines elsewhere).
+    standard error (a bar on a terminal, plain lines elsewhere). ``helper``
+    is an :class:`EarlyHelper` started before the base fit: it shares the
+    relaxed models with this process when the base fit left a core free.
     """
-    names = list(dict.fromkeys(a.relaxation.parameter for a in design.assumptions
-                               if a.relaxation is not None and a.relaxation.applies_to(design.options)
-                               and not a.uninformed(data)))
+    names = relaxation_names(design, data)
     if not names:
         return {}
     seeds = engine.seed_stream(seed, *[f"relax:{n}" for n in names])
+    if helper is not None and workers is None and helper.pays(main):
+        say(f"fitting {len(names)} relaxed model(s) in this process and one helper")
+        with Progress(len(names), "relaxed models", quiet=not progress) as bar:
+            return helper.share(
+                names,
+                lambda n: _fit_relaxed(design, data, n, seeds[f"relax:{n}"], settings, fitter),
+                lambda n: (_fit_relaxed, design, data, n, seeds[f"relax:{n}"], settings, fitter),
+                bar.advance)
     if workers is None:
         workers = relaxation_workers(len(names), settings, main)
     workers = max(1, min(len(names), workers))
