@@ -76,3 +76,21 @@ def test_a_fit_through_the_default_sampler_is_complete(counts):
     assert fit.idata.posterior["rate"].shape == (2, 150, 40)
     # A calibration's sampler is built for many refits: nutpie's native wrappers.
     assert engine.Sampler(_model(counts), fits=None).path == "native"
+
+
+def test_log_likelihood_of_a_refit_on_new_data_is_pymcs(counts):
+    # The sampler compiles the pointwise log-likelihood once and reuses it for
+    # every refit; each refit's values must equal PyMC's own computation on
+    # the data that refit saw (pm.compute_log_likelihood, the reference).
+    model = _model(counts)
+    sampler = engine.Sampler(model, fits=2, settings=SETTINGS)
+    for seed, table in ((1, counts), (2, counts[::-1] + 3)):
+        fit = engine.fit(model, seed, SETTINGS, sampler=sampler, observed={"y": table},
+                         predictive=False, prior=False)
+        with model:
+            pm.set_data({"y": table})
+            reference = pm.compute_log_likelihood(fit.idata.copy(), extend_inferencedata=False,
+                                                  progressbar=False)
+        np.testing.assert_allclose(fit.idata["log_likelihood"]["obs"].values, reference["obs"].values,
+                                   rtol=1e-12)
+        assert fit.idata["log_likelihood"]["obs"].dims == reference["obs"].dims

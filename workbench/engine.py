@@ -111,6 +111,39 @@ class Sampler:
         self.compile_seconds = made.seconds
         self.data_names = set(made.data_names)
         self.model_data_names = {var.name for var in model.data_vars}
+        self._log_likelihood = None
+
+    def log_likelihood(self, posterior: xr.Dataset) -> xr.Dataset:
+        """Pointwise log-likelihood of every observed variable at each posterior draw.
+
+        What ``pm.compute_log_likelihood`` gives, with its function compiled
+        once per sampler rather than once per fit: refits of one compiled
+        model (folds, calibration replicates) would otherwise pay a compile
+        each. The function reads the data the model's containers hold now.
+        """
+        from pymc.backends.arviz import apply_function_over_dataset, coords_and_dims_for_inferencedata
+        from pymc.model.transform.conditioning import remove_value_transforms
+
+        if self._log_likelihood is None:
+            # Draws are kept untransformed, so the function takes untransformed values.
+            plain = remove_value_transforms(self.model)
+            observed = list(plain.observed_RVs)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                fn = plain.compile_fn(inputs=plain.value_vars, outs=plain.logp(vars=observed, sum=False),
+                                      on_unused_input="ignore")
+            dtypes = {plain.rvs_to_values[rv].name: plain.rvs_to_values[rv].type.dtype
+                      for rv in plain.free_RVs}
+            self._log_likelihood = (plain, fn, tuple(rv.name for rv in observed), dtypes)
+        plain, fn, names, dtypes = self._log_likelihood
+        # The transformed copy holds copies of the containers: give them today's values.
+        for var in self.model.data_vars:
+            plain[var.name].set_value(var.get_value())
+        coords, dims = coords_and_dims_for_inferencedata(self.model)
+        inputs = posterior[[rv.name for rv in self.model.free_RVs]].astype(dtypes, copy=False)
+        return apply_function_over_dataset(fn, inputs, output_var_names=names,
+                                           sample_dims=("chain", "draw"), dims=dims, coords=coords,
+                                           progressbar=False)
 
     def with_data(self, observed: Mapping[str, np.ndarray]):
         """The compiled model with new values in its observed containers."""
@@ -295,7 +328,7 @@ def fit(
     say(f"{label}: log-likelihood" + (" and posterior predictive" if predictive else ""))
     with model, warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        pm.compute_log_likelihood(idata, extend_inferencedata=True, progressbar=False)
+        idata["log_likelihood"] = sampler.log_likelihood(idata["posterior"].to_dataset())
         if predictive:
             if prior:
                 pm.stats.compute_log_prior(idata, extend_inferencedata=True, progressbar=False)

@@ -30,7 +30,6 @@ with few units).
 
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
@@ -48,13 +47,23 @@ MIN_LOO_UNITS = 10
 # Gabry 2017, sec. 4).
 MAX_FOLDS = 10
 # Refits may cost at most this many times the fits the check has already made
-# (the base and relaxed models, compiling included): past that the verdict
-# falls back to the expansion parameter alone. A judgement of how long a user
-# waits for a check, not a published figure.
-KFOLD_TIME_MULTIPLE = 3.0
-# ... and whatever the check cost, a minute of refits is always spent: an
-# honest verdict on a small table is worth that wait (a judgement, as above).
-KFOLD_SECONDS_FLOOR = 60.0
+# (the base and relaxed models): past that the verdict falls back to the
+# expansion parameter alone. A judgement of how long a user waits for a check,
+# not a published figure. Cost is counted in leapfrog steps (gradient
+# evaluations), which a seed fixes, never in seconds: a verdict must not
+# depend on how busy the machine was.
+KFOLD_COST_MULTIPLE = 2.0
+# ... and whatever that allows, the base model and the relaxation most pulled
+# from its null are always refitted: an honest verdict on the likeliest cause
+# is worth the wait (a judgement, as above).
+
+# A refit only has to give the held-out units' log predictive density, a mean
+# over draws whose Monte Carlo error is small beside the SE of an elpd
+# difference; chains beyond two buy it little, and the check's fits have
+# already shown whether the posterior is explored. Fold refits therefore run
+# at most this many chains (a fixed number, not the core count, so that a
+# seed gives the same result on any machine).
+FOLD_CHAINS = 2
 
 HELD_OUT = "held_out"
 
@@ -109,7 +118,6 @@ class KFold:
 
     pointwise: np.ndarray
     folds: int
-    seconds: float
 
     @property
     def elpd(self) -> float:
@@ -119,13 +127,15 @@ class KFold:
 def held_out_elpd(design, data, relaxation, name: str, folds: np.ndarray, seed: int,
                   settings: engine.Settings, say: Callable[[str], None] = lambda _: None) -> KFold:
     """Refit one model once per fold (compiled once) and score the units it left out."""
+    from dataclasses import replace
+
     from scipy.special import logsumexp
 
-    start = time.perf_counter()
+    settings = replace(settings, chains=min(settings.chains, FOLD_CHAINS))
     model = fold_model(design, data, relaxation, name)
-    sampler = engine.Sampler(model)
-    shape = tuple(model[HELD_OUT].get_value().shape)
     k = int(folds.max()) + 1
+    sampler = engine.Sampler(model, fits=k, settings=settings)
+    shape = tuple(model[HELD_OUT].get_value().shape)
     seeds = engine.seed_stream(seed, *[f"fold:{i}" for i in range(k)])
     pointwise = np.full(folds.size, np.nan)
     label = getattr(relaxation, "parameter", None) or "base"
@@ -137,7 +147,16 @@ def held_out_elpd(design, data, relaxation, name: str, folds: np.ndarray, seed: 
         ll = fit.idata["log_likelihood"][name].values
         ll = ll.reshape(ll.shape[0] * ll.shape[1], -1)[:, folds == i]
         pointwise[folds == i] = logsumexp(ll, axis=0) - np.log(ll.shape[0])
-    return KFold(pointwise, k, time.perf_counter() - start)
+    return KFold(pointwise, k)
+
+
+def leapfrog_steps(fit) -> float:
+    """Gradient evaluations of a fit's kept draws: its cost, the same for a seed on any machine.
+
+    Warm-up is left out: every fit of a check warms up as long, so it scales
+    all costs alike.
+    """
+    return float(fit.idata["sample_stats"]["n_steps"].values.sum())
 
 
 @dataclass
@@ -162,9 +181,11 @@ def refit_untrusted(design, data, main, relaxed: dict[str, Any], seed: int,
     ``pull`` gives each relaxation parameter's share of posterior draws
     beyond its negligible distance from the null; below ``needed`` no elpd
     difference could change the verdict. The others are refitted, the most
-    pulled from the null first, while the estimated
-    cost stays within :data:`KFOLD_TIME_MULTIPLE` times the fits made so far
-    (or :data:`KFOLD_SECONDS_FLOOR`). The base model's refits serve them all.
+    pulled from the null first (ties: the larger PSIS-LOO gain first), while
+    the estimated cost stays within :data:`KFOLD_COST_MULTIPLE` times the
+    fits made so far; the first is always refitted. Costs are leapfrog steps
+    (:func:`leapfrog_steps`), so the choice is the same on any machine. The
+    base model's refits serve them all.
     """
     from workbench.checks.loo import loo_numbers
 
@@ -173,7 +194,11 @@ def refit_untrusted(design, data, main, relaxed: dict[str, Any], seed: int,
     units = len(base_loo["pareto_k"])
     name = list(main.idata["log_likelihood"].data_vars)[0]
     doubted = []
-    for parameter, fit in sorted(relaxed.items(), key=lambda item: -pull.get(item[0], 0.0)):
+    def order(item):
+        loo = loo_numbers(item[1])
+        return (-pull.get(item[0], 0.0), -(loo["elpd"] - base_loo["elpd"]), item[0])
+
+    for parameter, fit in sorted(relaxed.items(), key=order):
         loo = loo_numbers(fit)
         high = len(set(base_loo["bad_pareto_k"]) | set(loo["bad_pareto_k"]))
         if not why_not_psis(units, high, base_loo["k_threshold"]):
@@ -187,19 +212,20 @@ def refit_untrusted(design, data, main, relaxed: dict[str, Any], seed: int,
         return out
     folds = folds_for(units, seed)
     k = int(folds.max()) + 1
-    compile_seconds = getattr(getattr(main, "sampler", None), "compile_seconds", None) or main.seconds
-    spent = sum(compile_seconds + f.seconds for f in [main, *relaxed.values()])
-    budget = max(KFOLD_TIME_MULTIPLE * spent, KFOLD_SECONDS_FLOOR)
-    cost = compile_seconds + k * main.seconds
+    spent = sum(leapfrog_steps(f) for f in [main, *relaxed.values()])
+    budget = KFOLD_COST_MULTIPLE * spent
+    per_fold = min(settings.chains, FOLD_CHAINS) / settings.chains  # a refit runs fewer chains
+    cost = k * per_fold * leapfrog_steps(main)
     chosen = []
     for parameter in doubted:
-        extra = compile_seconds + k * relaxed[parameter].seconds
-        if cost + extra <= budget:
+        extra = k * per_fold * leapfrog_steps(relaxed[parameter])
+        if not chosen or cost + extra <= budget:
             chosen.append(parameter)
             cost += extra
         else:
-            out.skipped[parameter] = (f"refitting {k} folds would take about {cost + extra:.0f} s, "
-                                      f"over the {budget:.0f} s allowed")
+            out.skipped[parameter] = (f"refitting {k} folds would cost {(cost + extra) / spent:.1f} "
+                                      f"times the fits made so far, over the "
+                                      f"{KFOLD_COST_MULTIPLE:g} allowed")
     if not chosen:
         return out
     seeds = engine.seed_stream(seed, "base", *chosen)

@@ -150,7 +150,7 @@ def _absorbs_misfit(verdict: Verdict) -> bool:
     return any(f.numbers.get("absorbs_misfit") for f, _ in verdict.evidence if f.kind == "relaxation")
 
 
-def _cause_rank(verdict: Verdict) -> tuple[bool, float]:
+def _cause_rank(verdict: Verdict) -> tuple[bool, bool, float]:
     """Order of candidate causes: structural relaxations before the catch-all, then by gain.
 
     A relaxation that adds extra variation (beta-binomial, Dirichlet-multinomial)
@@ -159,9 +159,17 @@ def _cause_rank(verdict: Verdict) -> tuple[bool, float]:
     and often more than the structural relaxation that describes the fault.
     Its gain is therefore no evidence against a structural cause: a structural
     relaxation outranks it whatever the gains, and the catch-all is the cause
-    only when its alarm remains under the best structural relaxation.
+    only when its alarm remains under the best structural relaxation. A
+    relaxation judged by its parameter alone (no trustworthy gain) ranks
+    after those with a gain of its own kind.
     """
-    return (not _absorbs_misfit(verdict), _relaxation_gain(verdict) or 0.0)
+    gain = _relaxation_gain(verdict)
+    return (not _absorbs_misfit(verdict), gain is not None, gain or 0.0)
+
+
+def _relaxed(verdict: Verdict) -> bool:
+    """Whether the verdict rests on a relaxed fit (judged by its gain or by its parameter alone)."""
+    return any(f.kind == "relaxation" for f, _ in verdict.evidence)
 
 
 def _p_under(verdict: Verdict, cause: Verdict) -> float | None:
@@ -204,7 +212,7 @@ def _is_symptom(verdict: Verdict, cause: Verdict) -> bool:
     """
     if not _explains(cause, verdict):
         return False
-    if _relaxation_gain(verdict) is None:
+    if not _relaxed(verdict):
         return True
     outranks = _cause_rank(verdict) > _cause_rank(cause)
     if _statistic_alarmed(verdict):
@@ -216,9 +224,9 @@ def _is_symptom(verdict: Verdict, cause: Verdict) -> bool:
 def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
     """Resolve a cascade of alarms to its causes; demote the rest to symptoms.
 
-    Candidate causes are the broken assumptions with a relaxed fit, ranked by
-    :func:`_cause_rank` (structural before the catch-all, then by LOO gain).
-    A broken assumption is a symptom of a candidate when that candidate's
+    Candidate causes are the broken assumptions with a relaxed fit (judged by
+    its gain or by its parameter alone), ranked by :func:`_cause_rank`
+    (structural before the catch-all, then by LOO gain). A broken assumption is a symptom of a candidate when that candidate's
     relaxed model makes its targeted statistic look ordinary
     (:func:`_is_symptom`); a candidate that is itself a symptom of another
     is no cause. The causes left stand together: two broken assumptions,
@@ -229,7 +237,7 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
     whose only conflict is a posterior beyond its prior draws that the
     cause's relaxed model removes.
     """
-    relaxed = sorted((v for v in verdicts if v.verdict == BROKEN and _relaxation_gain(v) is not None),
+    relaxed = sorted((v for v in verdicts if v.verdict == BROKEN and _relaxed(v)),
                      key=_cause_rank, reverse=True)
     if not relaxed:
         return
