@@ -22,8 +22,9 @@ $(STAMP): pyproject.toml | $(PY)
 
 install: $(STAMP)
 
+# DEMO_FLAGS passes sampling options through (the README test uses small draws).
 demo: $(STAMP)
-	$(VENV)/bin/workbench demo --out reports/demo --force
+	$(VENV)/bin/workbench demo --out reports/demo --force $(DEMO_FLAGS)
 
 test: $(STAMP)
 	$(PY) -m pytest -q

@@ -62,6 +62,8 @@ def is_shell(body: str) -> bool:
 def small(command: str) -> str:
     """The command with small draws and replicates (see the module docstring)."""
     words = shlex.split(command)
+    if words == ["make", "demo"]:
+        return shlex.join(words + ["DEMO_FLAGS=" + " ".join(SMALL)])
     if words[0] == ".venv/bin/python" and words[1].startswith("benchmarks/"):
         return shlex.join(words[:2] + ["--help"])
     if words[0] == ".venv/bin/workbench" and words[1] in SAMPLING and words[1] != "audit":
