@@ -61,3 +61,20 @@ def test_report_puts_the_deciding_figure_first_in_the_broken_assumptions_evidenc
     first_alt = re.search(r'<img src="[^"]*" alt="([^"]*)"', article).group(1)
     expected = {"relaxation": "Posterior of", "ppc": "Targeted statistic"}[decided.kind]
     assert first_alt.startswith(expected)
+
+
+def test_every_relaxed_model_of_a_recipe_has_a_figure_of_its_own():
+    # timing-curve relaxes cohort_homogeneity two ways (timing scale, eventual
+    # share): each posterior gets its own figure, named where the finding is made.
+    from workbench import rates, registry
+    from workbench.checks.relaxation import relaxation_figure
+
+    cohort = []
+    for recipe in registry.load().recipes.values():
+        design, _, _ = rates._truth_layout(recipe, 0, {})  # the demo scenario's options
+        relaxed = [a for a in design.assumptions if a.relaxation]
+        names = [relaxation_figure(a.relaxation) for a in relaxed]
+        assert len(set(names)) == len(names), (recipe.name, names)
+        if recipe.name == "timing-curve":
+            cohort = [n for a, n in zip(relaxed, names) if a.key == "cohort_homogeneity"]
+    assert len(cohort) == 2

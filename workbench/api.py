@@ -15,7 +15,7 @@ from typing import Any, Callable, Mapping
 
 from workbench import engine, harness, plans, registry, tables, writers
 from workbench.errors import OutputError
-from workbench.recipe import make_design
+from workbench.recipe import make_design, option_text
 
 
 @dataclass
@@ -47,7 +47,7 @@ class CheckResult:
 def resolve_design(target: str, options: Mapping[str, Any] | None = None,
                    priors: Mapping[str, str] | None = None, recipe_folders: list[str] | None = None):
     """A recipe name (or a recipe/model file) bound to options and priors."""
-    options = {k: (v if isinstance(v, str) else str(v)) for k, v in (options or {}).items()}
+    options = {k: (v if isinstance(v, str) else option_text(v)) for k, v in (options or {}).items()}
     if str(target).endswith(".py"):
         from workbench import modelfile
 
@@ -123,7 +123,7 @@ def check(
         doc["manifest"] = writers.clean(plans.manifest(
             command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=run.started,
             plan={"file": str(plan_file) if plan_file else None, "designs": [design.label()],
-                  "target": str(target), "options": {k: str(v) for k, v in (options or {}).items()},
+                  "target": str(target), "options": {k: option_text(v) for k, v in (options or {}).items()},
                   "priors": dict(priors or {}), "seed": seed, "sbc": sbc, "relax": relax,
                   "sampling": settings.to_dict()}))
         result = CheckResult(run, doc, folder)
@@ -328,7 +328,7 @@ def calibrate(
         "schema": CALIBRATION_SCHEMA,
         "recipe": design.name,
         "design": design.label(),
-        "options": {k: str(v) for k, v in design.options.items()},
+        "options": {k: option_text(v) for k, v in design.options.items()},
         "priors": dict(design.priors),
         "seed": seed,
         "data": {"path": info.path, "sha256": info.sha256, "rows": info.rows},
@@ -337,7 +337,7 @@ def calibrate(
         "manifest": plans.manifest(
             command=command, data_path=info.path, data_sha256=info.sha256, seed=seed, started=started,
             plan={"target": str(target), "designs": [design.label()],
-                  "options": {k: str(v) for k, v in (options or {}).items()},
+                  "options": {k: option_text(v) for k, v in (options or {}).items()},
                   "priors": dict(priors or {}), "sims": sims, "seed": seed, "sampling": sampling}),
     })
     out_result = CalibrateResult(design, result, doc, folder)

@@ -43,6 +43,7 @@ from pathlib import Path
 from typing import Any
 
 from workbench.errors import OptionError
+from workbench.recipe import option_text
 
 # Seeds run from 0 to 2^63 - 1: NumPy's SeedSequence takes any whole number >= 0
 # and the run history stores the seed as a signed 64-bit SQLite INTEGER.
@@ -192,7 +193,7 @@ def plan_from_dict(raw: dict, path: Path | None = None) -> Plan:
         target = _text(raw["recipe"], f"{where} recipe")
         if target.endswith(".py"):
             target = str((base / target).resolve()) if not Path(target).is_absolute() else target
-        designs = [DesignSpec(target, {k: _option_text(v) for k, v in options.items()}, priors)]
+        designs = [DesignSpec(target, {k: option_text(v) for k, v in options.items()}, priors)]
     elif "designs" in raw:
         if options or priors:
             raise OptionError(f"{where}: [options] and [priors] go with 'recipe'; with 'designs' "
@@ -238,7 +239,7 @@ def _design_entry(item, base: Path, where: str) -> DesignSpec:
             raise OptionError(f"{where}: expected a table with 'recipe', 'options', 'priors'; "
                               f"found keys {', '.join(sorted(item)) or 'none'}")
         spec = DesignSpec(_text(item["recipe"], where),
-                          {k: _option_text(v) for k, v in dict(item.get("options", {})).items()},
+                          {k: option_text(v) for k, v in dict(item.get("options", {})).items()},
                           {k: _text(v, where) for k, v in dict(item.get("priors", {})).items()})
     else:
         raise OptionError(f"{where}: expected a design text or table; found {type(item).__name__}")
@@ -265,13 +266,6 @@ def _text(value, where: str) -> str:
     if not isinstance(value, str):
         raise OptionError(f"{where}: expected text in quotes; found {value!r}")
     return value
-
-
-def _option_text(value) -> str:
-    # Options travel as command-line text; TOML booleans read as true/false.
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    return str(value)
 
 
 def _whole(value, where: str, minimum: int = 0) -> int:

@@ -20,7 +20,9 @@ REQUIRED = object()  # sentinel: an option without a default must be given
 
 
 def option_text(value: Any) -> str:
-    """The ``--set`` text of a parsed option value: a list as ``a,b``, else ``str``."""
+    """The ``--set`` text of a parsed option value: a list as ``a,b``, an on/off as ``true``/``false``."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
     if isinstance(value, (tuple, list)):
         return ",".join(str(v) for v in value)
     return str(value)

@@ -186,8 +186,13 @@ def relaxation_finding(assumption, relaxation, expanded, original, labels=None, 
         value=float(mid),
         detail=head + tail,
         numbers=numbers,
-        figure=f"relaxation-{assumption.key}",
+        figure=relaxation_figure(relaxation),
     )
+
+
+def relaxation_figure(relaxation) -> str:
+    """The figure key of a relaxation's posterior (one per relaxed model: an assumption may have several)."""
+    return f"relaxation-{relaxation.parameter}"
 
 
 @check

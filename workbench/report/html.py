@@ -14,6 +14,7 @@ import jinja2
 import numpy as np
 
 from workbench import wording
+from workbench.checks.relaxation import relaxation_figure
 from workbench.recipe import outcome_words
 from workbench.report import plots
 from workbench.verdicts import BROKEN, DOUBTFUL, HOLDS, UNCHECKED, headline
@@ -166,7 +167,7 @@ def figures(run) -> dict[str, dict]:
             fig = plots.relaxation_posterior(draws, relaxation.null, relaxation.negligible, relaxation.parameter,
                                              parameter_support(run.relaxed[relaxation.parameter], run.design,
                                                                relaxation.parameter))
-            out[f"relaxation-{assumption.key}"] = {
+            out[relaxation_figure(relaxation)] = {
                 "uri": plots.to_data_uri(fig),
                 "caption": f"Posterior of '{relaxation.parameter}' in the expanded model, against its null."}
     names = _free_names(fit)
