@@ -56,6 +56,8 @@ from workbench.recipe import (
 
 NAME = "timing-curve"
 OUTCOME = "events"
+# The unit layout's own columns (workbench.units): never covariates.
+UNIT_COLUMNS = ("time", "event", "entry", "cohort", "group")
 
 EVENTUAL = Option(
     "eventual",
@@ -71,10 +73,10 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     names = tuple(options.get("covariates", ()))
     if units.is_unit_table(table):
         data = units.validate(table, None, options, NAME)
-        design = covariates.read(table, names, NAME)
+        design = covariates.read(table, names, NAME, UNIT_COLUMNS)
     else:
         data = cohorts.validate(table, [OUTCOME], options, NAME)
-        design = covariates.read(table, names, NAME)
+        design = covariates.read(table, names, NAME, ("cohort", "age", "exposed", OUTCOME, "group"))
         if design is not None:
             covariates.constant_within(design, table, *tables.label_column(table, "cohort"))
             design = design.take(np.asarray([rows[0] for rows in data.source_rows]))

@@ -36,8 +36,6 @@ from workbench.recipe import Option, Parameter
 # cells are numbers; its other cells are then errors (a typo in a dose
 # column), not extra levels of a label (common practice).
 NUMERIC_SHARE = 0.5
-# Columns the layouts use themselves; a covariate is any other column.
-RESERVED = ("time", "event", "outcome", "entry", "cohort", "group", "age", "exposed")
 # The dimension of the effect parameters.
 DIM = "covariate"
 
@@ -91,15 +89,18 @@ class Design:
                       self.references)
 
 
-def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str) -> Design | None:
-    """Check the covariate columns of ``table`` and build their design (None: no covariates)."""
+def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tuple[str, ...]) -> Design | None:
+    """Check the covariate columns of ``table`` and build their design (None: no covariates).
+
+    ``reserved`` are the layout's own columns, which cannot be covariates.
+    """
     if not names:
         return None
     present = [str(c) for c in table.columns]
     for name in names:
-        if name in RESERVED:
+        if name in reserved:
             raise DataError(f"option 'covariates': expected columns other than the layout's own "
-                            f"({', '.join(RESERVED)}); found {name!r}")
+                            f"({', '.join(reserved)}); found {name!r}")
         if name not in present:
             tables.require_columns(table, [name], recipe)
     blocks, effects, per_unit, mean, references = [], [], [], [], {}

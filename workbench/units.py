@@ -126,7 +126,8 @@ def validate(table: pd.DataFrame, outcomes: list[str] | None, options: dict, rec
         One row per unit in the table's order; ``extra['layout']`` is ``"units"``.
     """
     indicator = "event" if outcomes is None else "outcome"
-    clash = [c for c in ("age", "exposed") if c in table.columns]
+    # A covariate may be called age (age at entry, say): it is no cohort count.
+    clash = [c for c in ("age", "exposed") if c in table.columns and c not in options.get("covariates", ())]
     if clash:
         raise DataError(
             f"recipe '{recipe}': expected either one row per unit (time, {indicator}) or cohort "
