@@ -43,7 +43,7 @@ COHORTS = ("cohort,age,exposed,events,soil\nA,2,50,10,clay\nA,5,50,20,loam\n"
     (UNITS.replace("south", "north"), "site",
      "column 'site': expected a label covariate with at least two levels; found only 'north'"),
     (COHORTS, "soil", "column 'soil' row 2 (line 3): 'loam' differs from 'clay' given for cohort 'A' "
-                      "in row 1 (line 2); expected a covariate constant within each cohort"),
+                      "in row 1 (line 2); expected one soil per cohort"),
 ])
 def test_bad_covariates_exit_2_with_one_line(capsys, tmp_path, text, covariates, expected):
     path = tmp_path / "table.csv"

@@ -122,8 +122,8 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
         group, group_labels = tables.label_column(table, "group")
     else:
         group, group_labels = np.zeros(len(table), dtype=np.int64), ["all"]
-    _same_within_cohort(cohort, cohort_labels, exposed, "exposed")
-    _same_within_cohort(cohort, cohort_labels, group, "group", group_labels)
+    same_within_cohort(cohort, cohort_labels, exposed, "exposed")
+    same_within_cohort(cohort, cohort_labels, group, "group", group_labels)
 
     order = np.lexsort((age, cohort))
     cohort_s, age_s = cohort[order], age[order]
@@ -201,7 +201,7 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
     return data
 
 
-def _same_within_cohort(cohort, labels, values, name, value_labels=None):
+def same_within_cohort(cohort, labels, values, name, value_labels=None):
     """One value of ``name`` per cohort; name both rows that disagree."""
     seen: dict[int, int] = {}
     for i, (c, v) in enumerate(zip(cohort, values)):

@@ -146,16 +146,12 @@ def _is_numeric(column: pd.Series) -> bool:
 
 def constant_within(design: Design, table: pd.DataFrame, cohort: np.ndarray, labels: list[str]) -> None:
     """In cohort counts every covariate is one value per cohort; name the rows that disagree."""
+    from workbench.cohorts import same_within_cohort
+
     for name in design.names:
-        values = table[name].astype(str).str.strip().to_numpy()
-        first: dict[int, int] = {}
-        for i, (c, v) in enumerate(zip(cohort, values)):
-            j = first.setdefault(int(c), i)
-            if values[j] != v:
-                raise DataError(
-                    f"column '{name}' {tables.row(i)}: {v[:40]!r} differs from {values[j][:40]!r} given "
-                    f"for cohort '{labels[c]}' in {tables.row(j)}; expected a covariate constant "
-                    f"within each cohort")
+        # Compared as the text of the table, so numbers and labels alike.
+        values, texts = tables.label_column(table.assign(**{name: table[name].astype(str).str.strip()}), name)
+        same_within_cohort(cohort, labels, values, name, texts)
 
 
 def describe(design: Design) -> str:
