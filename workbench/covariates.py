@@ -59,11 +59,11 @@ COVARIATES = Option(
 PARAMETERS = (
     # Per sd of a numeric covariate (per level for labels): 95% of time
     # ratios between 1/7 and 7, from no effect to a very strong one.
-    Parameter("time_effect", "shift of the log timing scale per sd of a covariate (per level of a label)",
-              "normal(0,1)"),
+    Parameter("time_effect", "shift of the log timing scale per sd of a numeric covariate (per level of "
+              "a label, against its reference level: the first in sorted order)", "normal(0,1)"),
     # On the log-odds scale: 95% of odds ratios between 1/20 and 20.
-    Parameter("share_effect", "shift of the eventual share's log-odds per sd of a covariate (per level "
-              "of a label)", "normal(0,1.5)"),
+    Parameter("share_effect", "shift of the eventual share's log-odds per sd of a numeric covariate (per "
+              "level of a label, against its reference level)", "normal(0,1.5)"),
 )
 
 
@@ -152,13 +152,6 @@ def constant_within(design: Design, table: pd.DataFrame, cohort: np.ndarray, lab
         # Compared as the text of the table, so numbers and labels alike.
         values, texts = tables.label_column(table.assign(**{name: table[name].astype(str).str.strip()}), name)
         same_within_cohort(cohort, labels, values, name, texts)
-
-
-def describe(design: Design) -> str:
-    """One line for the report: the effects and the reference levels."""
-    refs = "; ".join(f"{name}: reference level {level!r} (first in sorted order)"
-                     for name, level in design.references.items())
-    return f"covariates {', '.join(design.effects)}" + (f" ({refs})" if refs else "")
 
 
 # --- the story in PyMC ---------------------------------------------------------------------
