@@ -18,7 +18,16 @@ alike; :func:`derived` reports timings back in the table's unit.
 
 Columns: ``cohort``, ``age``, ``exposed``, ``events`` (optional ``group``).
 Options: ``family``, ``eventual``, ``pooling``, ``shape_by_group`` (each group
-its own curve shape, pooled as the scale) and ``centred``.
+its own curve shape, pooled as the scale), ``centred`` and ``covariates``.
+
+Covariates (:mod:`workbench.covariates`). Each covariate column shifts a
+unit's log timing scale by ``time_effect`` (accelerated failure time form)
+and, under ``eventual=estimate``, the log-odds of its eventual share by
+``share_effect`` (logistic mixture cure model), per sd of a numeric column or
+per level of a label against its reference level. ``scale`` and ``eventual``
+then describe a unit at the numeric covariates' means and the labels'
+reference levels; ``time_ratio`` and ``odds_ratio`` give each effect per unit
+of its covariate.
 
 References
 ----------
@@ -33,7 +42,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves, engine, units
+from workbench import cohorts, covariates, curves, engine, tables, units
 from workbench.recipe import (
     Assumption,
     Column,
@@ -47,6 +56,8 @@ from workbench.recipe import (
 
 NAME = "timing-curve"
 OUTCOME = "events"
+# The unit layout's own columns (workbench.units): never covariates.
+UNIT_COLUMNS = ("time", "event", "entry", "cohort", "group")
 
 EVENTUAL = Option(
     "eventual",
@@ -59,10 +70,17 @@ EVENTUAL = Option(
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
     """Check the table: one row per unit when it has a ``time`` column
     (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
+    names = tuple(options.get("covariates", ()))
     if units.is_unit_table(table):
         data = units.validate(table, None, options, NAME)
+        design = covariates.read(table, names, NAME, UNIT_COLUMNS)
     else:
         data = cohorts.validate(table, [OUTCOME], options, NAME)
+        design = covariates.read(table, names, NAME, ("cohort", "age", "exposed", OUTCOME, "group"))
+        if design is not None:
+            covariates.constant_within(design, table, *tables.label_column(table, "cohort"))
+            design = design.take(np.asarray([rows[0] for rows in data.source_rows]))
+    data.extra["covariates"] = design
     # What fixes the curve: scale and shape, and the eventual share when estimated.
     data.extra["curve_parameters"] = 3 if options.get("eventual") == "estimate" else 2
     return data
@@ -75,19 +93,29 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     """Follow every unit of every cohort and count events at the table's ages.
 
     ``params`` is one draw of the model's variables (``scale`` or
-    ``scale_group``, ``shape``, ``eventual``) and may carry the relaxation
+    ``scale_group``, ``shape``, ``eventual``, with covariates ``time_effect``
+    and ``share_effect`` on the model's scale) and may carry the relaxation
     parameters (``never``, ``curve_power``, ``cohort_sd`` or
     ``cohort_effect``, ``overdispersion``) so that faults can be planted.
     """
     eventual = float(params.get("eventual", 1.0)) if options["eventual"] == "estimate" else 1.0
     eventual *= 1.0 - float(params.get("never", 0.0))
+    design = data.extra.get("covariates")
+    # Per row: the covariates' shift of the log timing scale and the eventual share.
+    time_shift = np.broadcast_to(covariates.linear(design, params, "time_effect"), (data.rows,))
+    share = np.full((data.rows, 1), eventual)
+    if options["eventual"] == "estimate" and "share_effect" in params:
+        logit = np.log(eventual) - np.log1p(-min(eventual, 1.0 - cohorts.EPS))
+        share = 1.0 / (1.0 + np.exp(-(logit + covariates.linear(design, params, "share_effect"))))[:, None]
     if units.is_units(data):
         return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
-                              params["shape"], [eventual],
-                              power=float(np.exp(params.get("curve_power", 0.0))))
+                              params["shape"], share,
+                              power=float(np.exp(params.get("curve_power", 0.0))), log_shift=time_shift)
+    last = data.extra["last_row"]
     counts = cohorts.simulate_units(
-        rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
-        cohorts.shapes_of(data, params, 1), [eventual],
+        rng, data, options["family"],
+        cohorts.scales_of(rng, data, params, 1) * np.exp(time_shift[last])[:, None],
+        cohorts.shapes_of(data, params, 1), share[last],
         power=float(np.exp(params.get("curve_power", 0.0))),
         rho=float(params.get("overdispersion", 0.0)),
     )
@@ -103,8 +131,13 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     import pytensor.tensor as pt
 
     unit = units.is_units(data)
-    with pm.Model(coords=units.coords(data) if unit else cohorts.coords(data)) as model:
+    design = data.extra.get("covariates")
+    coords = units.coords(data) if unit else cohorts.coords(data)
+    if design is not None:
+        coords[covariates.DIM] = list(design.effects)
+    with pm.Model(coords=coords) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
+        time_shift = None if design is None else covariates.shifts(design, prior, "time_effect")
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=())
         if options["eventual"] == "estimate":
@@ -120,29 +153,38 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         else:
             eventual = pt.ones(())
         share = pm.Deterministic("share", pt.reshape(eventual, (1,)), dims="outcome")
+        logit_share = None
+        if design is not None and options["eventual"] == "estimate":
+            # Each row's eventual share: the reference share shifted on the log-odds scale.
+            logit_share = (pt.log(eventual) - pt.log1p(-eventual)
+                           + covariates.shifts(design, prior, "share_effect"))
+        row_share = share if logit_share is None else pm.math.sigmoid(logit_share)[:, None]
         if unit:
             if relax == "cohort_share_sd":
                 # Not built for one row per unit yet: the relaxed model stays
                 # at its null, so it gains nothing and decides nothing.
                 pm.Deterministic("cohort_share_sd", pt.zeros(()))
             closed = options["eventual"] == "all" and relax != "never"
-            units.likelihood(data, counts, options["family"], scale_group, shape, share, relax, prior,
-                             closed)
+            units.likelihood(data, counts, options["family"], scale_group, shape, row_share, relax, prior,
+                             closed, log_shift=time_shift)
             return model
         if relax == "cohort_share_sd" and options["eventual"] == "estimate":
             # Each cohort's eventual share on the log-odds scale about the typical one.
             sd = prior("cohort_share_sd")
             z = pm.Normal("cohort_share_z", 0.0, 1.0, dims="cohort")
-            logit_row = pt.log(eventual) - pt.log1p(-eventual) + (sd * z)[data["cohort"]]
+            logit_row = (pt.log(eventual) - pt.log1p(-eventual) if logit_share is None
+                         else logit_share) + (sd * z)[data["cohort"]]
             cumulative = cohorts.cumulative_tensor(
-                data, options["family"], scale_group, shape, pt.ones((1,)), relax, prior
+                data, options["family"], scale_group, shape, pt.ones((1,)), relax, prior,
+                log_shift=time_shift,
             ) * pm.math.sigmoid(logit_row)[:, None]
         else:
             if relax == "cohort_share_sd":
                 # Every unit has the event under eventual=all: no share to differ.
                 pm.Deterministic("cohort_share_sd", pt.zeros(()))
             cumulative = cohorts.cumulative_tensor(
-                data, options["family"], scale_group, shape, share, relax, prior
+                data, options["family"], scale_group, shape, row_share, relax, prior,
+                log_shift=time_shift,
             )
         pm.Deterministic("cumulative", cumulative[:, 0], dims="row")
         cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
@@ -228,10 +270,13 @@ RECIPE = Recipe(
     summary="Units of a cohort have one event at a random age; some may never have it.",
     columns=cohorts.columns(
         Column("events", "units with the event by that age (cumulative, non-decreasing in age)")),
-    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED),
+    options=(cohorts.FAMILY, EVENTUAL, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED,
+             covariates.COVARIATES),
     parameters=(
         *cohorts.TIMING_PARAMETERS,
-        Parameter("eventual", "share of units that ever have the event (eventual=estimate)", "beta(1,1)"),
+        Parameter("eventual", "share of units that ever have the event (eventual=estimate; with "
+                  "covariates: at their means and reference levels)", "beta(1,1)"),
+        *covariates.PARAMETERS,
         # Relaxation parameters (only present in the expanded models).
         Parameter("never", "share of units that never have the event (eventual=all relaxed)", "beta(1,20)"),
         # sd 0.5 on log-odds: cohorts' eventual shares a few points to about

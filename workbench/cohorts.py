@@ -122,8 +122,8 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
         group, group_labels = tables.label_column(table, "group")
     else:
         group, group_labels = np.zeros(len(table), dtype=np.int64), ["all"]
-    _same_within_cohort(cohort, cohort_labels, exposed, "exposed")
-    _same_within_cohort(cohort, cohort_labels, group, "group", group_labels)
+    same_within_cohort(cohort, cohort_labels, exposed, "exposed")
+    same_within_cohort(cohort, cohort_labels, group, "group", group_labels)
 
     order = np.lexsort((age, cohort))
     cohort_s, age_s = cohort[order], age[order]
@@ -201,7 +201,7 @@ def validate(table: pd.DataFrame, outcomes: list[str], options: dict, recipe: st
     return data
 
 
-def _same_within_cohort(cohort, labels, values, name, value_labels=None):
+def same_within_cohort(cohort, labels, values, name, value_labels=None):
     """One value of ``name`` per cohort; name both rows that disagree."""
     seen: dict[int, int] = {}
     for i, (c, v) in enumerate(zip(cohort, values)):
@@ -383,10 +383,13 @@ def event_ages(data: Dataset, counts):
     return pt.exp(weighted / pt.maximum(events.sum(axis=(0, 1)), 1.0))
 
 
-def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, relax: str | None, prior):
+def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, relax: str | None, prior,
+                      log_shift=None):
     """Cumulative incidence per row and outcome (rows, K) as a PyTensor expression.
 
-    ``shape`` is what :func:`timing_shapes` returns.
+    ``shape`` is what :func:`timing_shapes` returns; ``share`` is one share
+    per outcome (K,) or per row and outcome (rows, K); ``log_shift`` (rows,),
+    when given, shifts each row's log timing scale (covariates).
 
     Adds the shared relaxations: ``curve_power`` (F ** exp(curve_power),
     the exponentiated family) and ``cohort_sd`` (a cohort effect on log scale).
@@ -402,13 +405,15 @@ def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, rel
         z = pm.Normal("cohort_z", 0.0, 1.0, dims="cohort")
         effect = pm.Deterministic("cohort_effect", sd * z, dims="cohort")
         scale_row = scale_row * pt.exp(effect[data["cohort"]])[:, None]
+    if log_shift is not None:
+        scale_row = scale_row * pt.exp(log_shift)[:, None]
     age = pt.constant(relative_age(data))[:, None]
     # One shape per outcome, or (groups, K) under shape_by_group.
     shape = shape[data["group"]] if shape.ndim == 2 else pt.reshape(shape, (k,))
     f = curves.cdf_tensor(family, age, scale_row, shape)
     if relax == "curve_power":
         f = f ** pt.exp(prior("curve_power"))
-    return pt.reshape(share, (k,)) * f
+    return (share if share.ndim == 2 else pt.reshape(share, (k,))) * f
 
 
 def cells_tensor(data: Dataset, cumulative):
@@ -509,7 +514,8 @@ def simulate_units(rng: np.random.Generator, data: Dataset, family: str, scales:
                    shape, share, power: float = 1.0, rho: float = 0.0) -> np.ndarray:
     """Follow every unit of every cohort; return cumulative counts per row (rows, K).
 
-    Each unit ends in outcome k with probability ``share_k`` (or never), at a
+    Each unit ends in outcome k with probability ``share_k`` (one per
+    outcome, or per cohort and outcome; or never), at a
     time drawn from family F_k with the cohort's scale and shape (``shape``
     per outcome, or per cohort and outcome as :func:`shapes_of` gives); with ``power != 1``
     the time follows F_k ** power (drawn by inverting U ** (1 / power)).
@@ -519,12 +525,12 @@ def simulate_units(rng: np.random.Generator, data: Dataset, family: str, scales:
     """
     k = scales.shape[1]
     shape = np.broadcast_to(np.asarray(shape, dtype=float), scales.shape)
-    share = np.broadcast_to(np.asarray(share, dtype=float), (k,))
+    share = np.broadcast_to(np.asarray(share, dtype=float), scales.shape)
     out = np.zeros((data.rows, k), dtype=np.int64)
     ages = data["age"] / data.extra["age_ref"]
     if rho > 0:
         kappa = 1.0 / rho - 1.0
-        cumulative = share * curves.cdf(family, ages[:, None], scales[data["cohort"]],
+        cumulative = share[data["cohort"]] * curves.cdf(family, ages[:, None], scales[data["cohort"]],
                                         shape[data["cohort"]]) ** power
         p = cell_probabilities(data, cumulative)
         mask = real_cells(data)
@@ -536,10 +542,10 @@ def simulate_units(rng: np.random.Generator, data: Dataset, family: str, scales:
             inc = cells[:-1].reshape(-1, k)[data["slot"][rows]]
             out[rows] = np.cumsum(inc, axis=0)
         return out
-    closed = 1.0 - share.sum()
+    closed = 1.0 - share.sum(axis=1)
     for c, n in enumerate(data.extra["cohort_exposed"]):
         rows = np.flatnonzero(data["cohort"] == c)
-        outcome = rng.choice(k + 1, size=n, p=np.append(share, max(closed, 0.0)))
+        outcome = rng.choice(k + 1, size=n, p=np.append(share[c], max(closed[c], 0.0)))
         for j in range(k):
             who = outcome == j
             m = int(who.sum())

@@ -126,7 +126,8 @@ def validate(table: pd.DataFrame, outcomes: list[str] | None, options: dict, rec
         One row per unit in the table's order; ``extra['layout']`` is ``"units"``.
     """
     indicator = "event" if outcomes is None else "outcome"
-    clash = [c for c in ("age", "exposed") if c in table.columns]
+    # A covariate may be called age (age at entry, say): it is no cohort count.
+    clash = [c for c in ("age", "exposed") if c in table.columns and c not in options.get("covariates", ())]
     if clash:
         raise DataError(
             f"recipe '{recipe}': expected either one row per unit (time, {indicator}) or cohort "
@@ -354,24 +355,30 @@ def unit_scales(data: Dataset, scale_group, relax: str | None, prior):
 
 
 def likelihood(data: Dataset, units, family: str, scale_group, shape, share, relax: str | None,
-               prior, closed: bool):
+               prior, closed: bool, log_shift=None):
     """The observed units ``y``: the censored, truncated mixture likelihood of the module docstring.
 
     ``closed`` is True when the shares add up to one by construction (every
-    unit ends in an outcome): the survival then has no open part.
+    unit ends in an outcome): the survival then has no open part. ``share``
+    is one share per outcome (K,) or one per unit and outcome (units, K);
+    ``log_shift`` (units,), when given, shifts each unit's log timing scale
+    (covariates in the accelerated failure time form).
     """
     import pymc as pm
     import pytensor.tensor as pt
 
     k = len(data.extra["outcomes"])
     scale = unit_scales(data, scale_group, relax, prior) * data.extra["age_ref"]
+    if log_shift is not None:
+        scale = scale * pt.exp(log_shift)[:, None]
+    share = share if share.ndim == 2 else pt.reshape(share, (k,))
     power = pt.exp(prior("curve_power")) if relax == "curve_power" else pt.ones(())
     entry = pm.Data("entry", data["entry"].astype(float), dims="unit")
     follow = pm.Data("follow", data["follow"].astype(float), dims="unit")
     logp = partial(_logp, family=family, closed=closed, powered=relax == "curve_power")
     random = partial(_random, family=family)
     return pm.CustomDist(
-        "y", entry, follow, scale, pt.reshape(shape, (k,)), pt.reshape(share, (k,)), power,
+        "y", entry, follow, scale, pt.reshape(shape, (k,)), share, power,
         pt.zeros(len(FIELDS)),
         logp=logp, random=random, signature="(),(),(k),(k),(k),(),(f)->(f)",
         observed=units, dims=("unit", "field"),
@@ -395,15 +402,16 @@ def _log_survival(family, t, scale, shape, share, power, closed: bool, powered: 
         log_sf = _log1mexp(pt.minimum(power * log_f, -curves.TINY_SURVIVAL))
     parts = pt.log(share) + log_sf
     if not closed:
-        open_share = pt.maximum(1.0 - share.sum(), curves.TINY_SURVIVAL)
-        parts = pt.concatenate([parts, pt.broadcast_to(pt.log(open_share), (t.shape[0], 1))], axis=1)
+        open_share = pt.maximum(1.0 - share.sum(axis=-1), curves.TINY_SURVIVAL)
+        parts = pt.concatenate(
+            [parts, pt.broadcast_to(pt.shape_padright(pt.log(open_share)), (t.shape[0], 1))], axis=1)
     return pt.logsumexp(parts, axis=1)
 
 
 def _logp(value, entry, follow, scale, shape, share, power, fields, family, closed, powered):
     import pytensor.tensor as pt
 
-    share = pt.reshape(share, (-1,))
+    share = share if share.ndim == 2 else pt.reshape(share, (-1,))
     shape = pt.reshape(shape, (-1,))
     power = pt.reshape(power, ())
     t, code = value[:, 0], value[:, 1]
@@ -428,9 +436,10 @@ def _logp(value, entry, follow, scale, shape, share, power, fields, family, clos
 def _random(entry, follow, scale, shape, share, power, fields, rng=None, size=None, family=None):
     n = np.shape(entry)[-1] if size is None else int(size[-1])
     k = np.shape(scale)[-1]
+    share = np.broadcast_to(share, (n, k)) if np.ndim(share) >= 2 else np.reshape(share, (-1,))[-k:]
     return draw_units(
         rng, family, np.broadcast_to(entry, (n,)), np.broadcast_to(follow, (n,)),
-        np.broadcast_to(scale, (n, k)), np.reshape(shape, (-1,))[-k:], np.reshape(share, (-1,))[-k:],
+        np.broadcast_to(scale, (n, k)), np.reshape(shape, (-1,))[-k:], share,
         float(np.reshape(power, (-1,))[0]),
     )
 
@@ -442,7 +451,8 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
                power: float = 1.0, cohort_power=None) -> np.ndarray:
     """Follow every unit from its entry to its censoring time; return (time, code) per unit.
 
-    Each unit ends in outcome k with probability ``share_k`` (or never), at
+    Each unit ends in outcome k with probability ``share_k`` (its own, when
+    ``share`` is (units, K); or never), at
     a time drawn from F_k ** power with its scale, given that it had no
     outcome by its ``entry``; it is seen with its outcome when that time is
     at or before ``follow``, else censored at ``follow``. Times are drawn by
@@ -453,9 +463,9 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
     scale = np.asarray(scale, dtype=float)
     n, k = scale.shape
     shape = np.broadcast_to(np.asarray(shape, dtype=float), (k,))
-    share = np.broadcast_to(np.asarray(share, dtype=float), (k,))
+    share = np.broadcast_to(np.asarray(share, dtype=float), (n, k))
     reached = curves.cdf(family, entry[:, None], scale, shape[None, :]) ** power  # F_k(entry)^p
-    weight = np.column_stack([share * (1.0 - reached), np.full(n, max(1.0 - share.sum(), 0.0))])
+    weight = np.column_stack([share * (1.0 - reached), np.maximum(1.0 - share.sum(axis=1), 0.0)])
     weight = weight / weight.sum(axis=1, keepdims=True)
     outcome = (rng.random(n)[:, None] > np.cumsum(weight, axis=1)[:, :-1]).sum(axis=1)
     times = np.full(n, np.inf)
@@ -476,13 +486,14 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
 
 
 def simulate(rng: np.random.Generator, data: Dataset, family: str, scales: np.ndarray, shape, share,
-             power: float = 1.0) -> Dataset:
+             power: float = 1.0, log_shift=0.0) -> Dataset:
     """New outcomes for the units of ``data`` (same entries and censoring times).
 
     ``scales`` is the timing scale per cohort and outcome (cohorts, K), in
-    the model's relative time.
+    the model's relative time; ``log_shift`` (units,) shifts each unit's log
+    scale and ``share`` may be one per unit and outcome (covariates).
     """
-    scale = scales[data["cohort"]] * data.extra["age_ref"]
+    scale = scales[data["cohort"]] * data.extra["age_ref"] * np.exp(np.asarray(log_shift, dtype=float))[..., None]
     drawn = draw_units(rng, family, data["entry"], data["follow"], scale, shape, share, power)
     return data.replace(time=drawn[:, 0], code=drawn[:, 1].astype(np.int64), age=drawn[:, 0])
 
@@ -530,25 +541,45 @@ def simulate_table(rng: np.random.Generator, family: str, scale, shape, share, u
 # --- targeted statistics -------------------------------------------------------------------
 
 
-def _unit_curves(data: Dataset, draws: dict, family: str):
-    """Per draw: scale per cohort and outcome (S, C, K) in table time, shape, share, power."""
+def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
+    """The curves of the ``picked`` draws, one per cohort or, with covariates, per unit.
+
+    Returns the curve of each unit (n,), and per draw the scale (S, L, K) in
+    table time, shape (S, K), share (S, L, K) and power (S,) of the L curves.
+    """
+    from workbench import covariates
+
     k = len(data.extra["outcomes"])
-    group = np.asarray(draws["scale_group"], dtype=float)
+    group = np.asarray(draws["scale_group"], dtype=float)[picked]
     s = group.shape[0]
     group = group.reshape(s, len(data.labels["group"]), k)
     scale = group[:, data.extra["cohort_group"], :] * data.extra["age_ref"]
     if "cohort_effect" in draws:
-        scale = scale * np.exp(np.asarray(draws["cohort_effect"], dtype=float).reshape(s, -1, 1))
-    shape = np.asarray(draws["shape"], dtype=float).reshape(s, k)
-    share = np.asarray(draws["share"], dtype=float).reshape(s, k)
-    power = np.exp(np.asarray(draws.get("curve_power", np.zeros(s)), dtype=float).reshape(s))
-    return scale, shape, share, power
+        effect = np.asarray(draws["cohort_effect"], dtype=float)[picked]
+        scale = scale * np.exp(effect.reshape(s, -1, 1))
+    shape = np.asarray(draws["shape"], dtype=float)[picked].reshape(s, k)
+    share = np.asarray(draws["share"], dtype=float)[picked].reshape(s, 1, k)
+    power = np.exp(np.asarray(draws.get("curve_power", np.zeros(len(draws["shape"]))),
+                              dtype=float)[picked].reshape(s))
+    design = data.extra.get("covariates")
+    if design is None:
+        return data["cohort"], scale, shape, np.broadcast_to(share, scale.shape), power
+    # Each unit its own curve: its cohort's scale shifted by its covariates.
+    picked_draws = {name: np.asarray(draws[name])[picked] for name in ("time_effect", "share_effect")
+                    if name in draws}
+    scale = scale[:, data["cohort"], :] * np.exp(covariates.linear(design, picked_draws,
+                                                                   "time_effect"))[..., None]
+    if "share_effect" in picked_draws:
+        logit = np.log(share) - np.log1p(-np.minimum(share, 1.0 - curves.TINY_SURVIVAL))
+        shift = covariates.linear(design, picked_draws, "share_effect")[..., None]
+        share = 1.0 / (1.0 + np.exp(-(logit + shift)))
+    return np.arange(data.rows), scale, shape, np.broadcast_to(share, scale.shape), power
 
 
 def _hazard(family, t, scale, shape, share, power):
-    """Cumulative hazard -log S(t); t (S, n), scale (S, n, K), the rest (S, K) or (S,)."""
+    """Cumulative hazard -log S(t); t (S, n), scale and share (S, n, K), shape (S, K), power (S,)."""
     f = curves.cdf(family, t[..., None], scale, shape[:, None, :]) ** power[:, None, None]
-    survival = 1.0 - (share[:, None, :] * f).sum(axis=-1)
+    survival = 1.0 - (share * f).sum(axis=-1)
     return -np.log(np.maximum(survival, curves.TINY_SURVIVAL))
 
 
@@ -565,9 +596,9 @@ def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
     s_all, n = y.shape[0], data.rows
     step = max(1, int(np.ceil(s_all * n / STATISTIC_BUDGET)))
     picked = np.arange(0, s_all, step)
-    scale_c, shape, share, power = (a[picked] for a in _unit_curves(data, draws, family))
+    curve, scale_c, shape, share_c, power = _unit_curves(data, draws, family, picked)
     edges = data.extra["bins"]
-    n_bins, n_cohorts = edges.size - 1, len(data.labels["cohort"])
+    n_bins, n_cohorts, n_curves = edges.size - 1, len(data.labels["cohort"]), scale_c.shape[1]
     cohort, entry = data["cohort"], data["entry"]
     chunk = max(1, STATISTIC_BUDGET // (20 * max(n, 1)))
     outputs = [np.zeros((picked.size, n_bins)) for _ in range(2)] + \
@@ -577,20 +608,20 @@ def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
         part = slice(lo, lo + chunk)
         m = picked[part].size
         t, code = y[picked[part], :, 0], y[picked[part], :, 1]
-        scale = scale_c[part][:, cohort, :]
-        args = (shape[part], share[part], power[part])
+        scale = scale_c[part][:, curve, :]
+        args = (shape[part], share_c[part][:, curve, :], power[part])
         h_t = _hazard(family, t, scale, *args)
         h_e = _hazard(family, np.broadcast_to(entry, t.shape), scale, *args) if entry.any() else 0.0 * h_t
-        # H at the inner bin edges per draw and cohort (S, C, B-1).
+        # H at the inner bin edges per draw and curve (S, L, B-1).
         edge_scale = scale_c[part][:, :, None, :]
         f = curves.cdf(family, finite[None, None, :, None], edge_scale, shape[part][:, None, None, :])
         f = f ** power[part][:, None, None, None]
-        h_edge = -np.log(np.maximum(1.0 - (share[part][:, None, None, :] * f).sum(-1), curves.TINY_SURVIVAL))
-        h_edge = np.concatenate([np.zeros((m, n_cohorts, 1)), h_edge, np.full((m, n_cohorts, 1), np.inf)], 2)
+        h_edge = -np.log(np.maximum(1.0 - (share_c[part][:, :, None, :] * f).sum(-1), curves.TINY_SURVIVAL))
+        h_edge = np.concatenate([np.zeros((m, n_curves, 1)), h_edge, np.full((m, n_curves, 1), np.inf)], 2)
         draw = np.arange(m)[:, None]
         bin_of = _bin_of(edges, t)
-        top = _clipped_sums(h_t, bin_of, cohort, h_edge)
-        bottom = _clipped_sums(h_e, np.broadcast_to(_bin_of(edges, entry), t.shape), cohort, h_edge)
+        top = _clipped_sums(h_t, bin_of, curve, h_edge)
+        bottom = _clipped_sums(h_e, np.broadcast_to(_bin_of(edges, entry), t.shape), curve, h_edge)
         seen = (code > 0).astype(float)
         outputs[0][part] = _sums(draw * n_bins + bin_of, seen, m * n_bins).reshape(m, n_bins)
         outputs[1][part] = np.maximum(top - bottom, 0.0)

@@ -1,0 +1,186 @@
+"""Covariates: columns of the table that shift each unit's timing and eventual share.
+
+A covariate is a numeric column (a dose, a size, an age at entry) or a label
+column (a site, a variety). It enters the model as one column of a design
+matrix per effect: a number standardised to mean 0 and sd 1 inside the model
+(so one default prior fits any unit), a label as one indicator per level
+other than its reference level, the first in sorted order.
+
+In the ``timing-curve`` recipe each effect shifts the log timing scale (the
+accelerated failure time form, Kalbfleisch and Prentice 2002, section 2.3.3:
+a unit with covariates x has times ``exp(x'b)`` as long as a reference unit)
+and the log-odds of the eventual share (the logistic mixture cure model of
+Farewell 1982). The effects are reported per unit of the covariate (per
+level against the reference for labels) as time ratios and odds ratios.
+
+References
+----------
+Farewell, V. T. (1982). The use of mixture models for the analysis of survival
+data with long-term survivors. Biometrics 38(4), 1041-1046.
+Kalbfleisch, J. D. and Prentice, R. L. (2002). The Statistical Analysis of
+Failure Time Data, 2nd ed. Wiley.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from workbench import tables
+from workbench.errors import DataError
+from workbench.recipe import Option, Parameter
+
+# A column is read as numbers when more than this share of its non-empty
+# cells are numbers; its other cells are then errors (a typo in a dose
+# column), not extra levels of a label (common practice).
+NUMERIC_SHARE = 0.5
+# The dimension of the effect parameters.
+DIM = "covariate"
+
+
+def parse_names(text: str) -> tuple[str, ...]:
+    """``"dose,site"`` -> ``("dose", "site")``; empty text: no covariates."""
+    names = tuple(part.strip() for part in str(text).split(",") if part.strip())
+    if len(set(names)) != len(names):
+        raise ValueError("each column at most once")
+    return names
+
+
+COVARIATES = Option(
+    "covariates",
+    "a comma list of table columns (numbers or labels) that shift the timing scale and the "
+    "eventual share (default: none)",
+    parse=parse_names,
+    default=(),
+)
+
+PARAMETERS = (
+    # Per sd of a numeric covariate (per level for labels): 95% of time
+    # ratios between 1/7 and 7, from no effect to a very strong one.
+    Parameter("time_effect", "shift of the log timing scale per sd of a numeric covariate (per level of "
+              "a label, against its reference level: the first in sorted order)", "normal(0,1)"),
+    # On the log-odds scale: 95% of odds ratios between 1/20 and 20.
+    Parameter("share_effect", "shift of the eventual share's log-odds per sd of a numeric covariate (per "
+              "level of a label, against its reference level)", "normal(0,1.5)"),
+)
+
+
+@dataclass(frozen=True)
+class Design:
+    """The covariates of a validated table.
+
+    ``matrix`` has one row per dataset row and one column per effect
+    (standardised numbers, 0/1 indicators); ``per_unit`` divides an effect
+    on that scale to give it per unit of the covariate (the sd for numbers,
+    1 for labels); ``effects`` names the columns (``dose``, ``site=north``).
+    """
+
+    names: tuple[str, ...]
+    effects: tuple[str, ...]
+    matrix: np.ndarray
+    per_unit: np.ndarray
+    mean: np.ndarray
+    references: dict
+
+    def take(self, order: np.ndarray) -> "Design":
+        return Design(self.names, self.effects, self.matrix[order], self.per_unit, self.mean,
+                      self.references)
+
+
+def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tuple[str, ...]) -> Design | None:
+    """Check the covariate columns of ``table`` and build their design (None: no covariates).
+
+    ``reserved`` are the layout's own columns, which cannot be covariates.
+    """
+    if not names:
+        return None
+    present = [str(c) for c in table.columns]
+    for name in names:
+        if name in reserved:
+            raise DataError(f"option 'covariates': expected columns other than the layout's own "
+                            f"({', '.join(reserved)}); found {name!r}")
+        if name not in present:
+            tables.require_columns(table, [name], recipe)
+    blocks, effects, per_unit, mean, references = [], [], [], [], {}
+    for name in names:
+        if _is_numeric(table[name]):
+            values = tables.numeric_column(table, name)
+            sd = float(values.std())
+            if not sd > 0:
+                raise DataError(f"column '{name}': expected a covariate that varies; found the value "
+                                f"{values[0]:g} on every row")
+            blocks.append(((values - values.mean()) / sd)[:, None])
+            effects.append(name)
+            per_unit.append(sd)
+            mean.append(float(values.mean()))
+            continue
+        codes, seen = tables.label_column(table, name)
+        levels = sorted(seen)
+        codes = np.asarray([levels.index(level) for level in seen])[codes]
+        if len(levels) < 2:
+            raise DataError(f"column '{name}': expected a label covariate with at least two levels; "
+                            f"found only {levels[0]!r}")
+        # The reference is the first level in sorted order.
+        references[name] = levels[0]
+        blocks.append((codes[:, None] == np.arange(1, len(levels))[None, :]).astype(float))
+        effects.extend(f"{name}={level}" for level in levels[1:])
+        per_unit.extend([1.0] * (len(levels) - 1))
+        mean.extend([0.0] * (len(levels) - 1))
+    return Design(tuple(names), tuple(effects), np.hstack(blocks), np.asarray(per_unit),
+                  np.asarray(mean), references)
+
+
+def _is_numeric(column: pd.Series) -> bool:
+    if pd.api.types.is_bool_dtype(column):
+        return False
+    if pd.api.types.is_numeric_dtype(column):
+        return True
+    filled = column.dropna()
+    filled = filled[filled.astype(str).str.strip() != ""]
+    if filled.empty:
+        return False
+    return float(pd.to_numeric(filled, errors="coerce").notna().mean()) > NUMERIC_SHARE
+
+
+def constant_within(design: Design, table: pd.DataFrame, cohort: np.ndarray, labels: list[str]) -> None:
+    """In cohort counts every covariate is one value per cohort; name the rows that disagree."""
+    from workbench.cohorts import same_within_cohort
+
+    for name in design.names:
+        # Compared as the text of the table, so numbers and labels alike.
+        values, texts = tables.label_column(table.assign(**{name: table[name].astype(str).str.strip()}), name)
+        same_within_cohort(cohort, labels, values, name, texts)
+
+
+# --- the story in PyMC ---------------------------------------------------------------------
+
+
+def shifts(design: Design, prior, name: str):
+    """The effect parameter ``name`` (dims ``covariate``) and its linear shift per row.
+
+    Also records the effect per unit of each covariate on its interpretable
+    scale: ``time_ratio`` (exp of the log timing shift) for ``time_effect``,
+    ``odds_ratio`` for ``share_effect``.
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    effect = prior(name, dims=DIM)
+    ratio = {"time_effect": "time_ratio", "share_effect": "odds_ratio"}[name]
+    pm.Deterministic(ratio, pt.exp(effect / design.per_unit), dims=DIM)
+    return pt.dot(pt.constant(design.matrix), effect)
+
+
+def linear(design: Design, params: dict, name: str) -> np.ndarray:
+    """The shift per row from a draw (or ``(S, effects)`` draws) of ``name``; 0 when absent."""
+    if design is None or name not in params:
+        return 0.0
+    effect = np.asarray(params[name], dtype=float)
+    return effect @ design.matrix.T if effect.ndim > 1 else design.matrix @ effect.reshape(-1)
+
+
+def on_model_scale(design: Design, per_unit_effects) -> np.ndarray:
+    """Effects per unit of each covariate (log time or odds ratios) on the model's scale."""
+    return np.asarray(per_unit_effects, dtype=float) * design.per_unit
