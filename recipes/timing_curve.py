@@ -160,9 +160,16 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
                            + covariates.shifts(design, prior, "share_effect"))
         row_share = share if logit_share is None else pm.math.sigmoid(logit_share)[:, None]
         if unit:
-            if relax == "cohort_share_sd":
-                # Not built for one row per unit yet: the relaxed model stays
-                # at its null, so it gains nothing and decides nothing.
+            if relax == "cohort_share_sd" and options["eventual"] == "estimate":
+                # Each unit's eventual share: its cohort's, on the log-odds scale
+                # about the typical one (and its covariates' shift).
+                sd = prior("cohort_share_sd")
+                z = pm.Normal("cohort_share_z", 0.0, 1.0, dims="cohort")
+                logit_unit = (pt.log(eventual) - pt.log1p(-eventual) if logit_share is None
+                              else logit_share) + (sd * z)[data["cohort"]]
+                row_share = pm.math.sigmoid(logit_unit)[:, None]
+            elif relax == "cohort_share_sd":
+                # Every unit has the event under eventual=all: no share to differ.
                 pm.Deterministic("cohort_share_sd", pt.zeros(()))
             closed = options["eventual"] == "all" and relax != "never"
             units.likelihood(data, counts, options["family"], scale_group, shape, row_share, relax, prior,

@@ -204,3 +204,39 @@ def api_check(path, settings):
     from workbench import api
 
     return api.check("timing-curve", path, settings=settings, write=False, history=False)
+
+
+def test_cohort_share_relaxation_gives_each_unit_its_cohorts_eventual_share():
+    # The unit-level form of the cohort eventual-share relaxation against the
+    # censored, truncated mixture cure likelihood written out in NumPy (Farewell
+    # 1982; Weibull curve S(t) = exp(-(t / scale) ** shape) as lifelines'
+    # WeibullFitter parametrises it): an event at t adds log(p f(t)), a unit
+    # last seen at t adds log(1 - p F(t)), a late entry at e takes away
+    # log(1 - p F(e)), with p the unit's cohort share.
+    from scipy.special import expit, logit
+
+    table = _seedlings(3).iloc[::4].reset_index(drop=True)  # 200 units in 8 trays
+    design = _design("timing-curve", family="weibull", eventual="estimate")
+    data = design.validate(table)
+    relaxation = next(a.relaxation for a in design.assumptions
+                      if a.relaxation and a.relaxation.parameter == "cohort_share_sd")
+    model = design.build(data, relaxation)
+    z = np.linspace(-1.5, 1.5, len(data.labels["cohort"]))
+    values = {"scale": 0.9, "shape": 2.2, "eventual": 0.7, "cohort_share_sd": 0.8}
+    point = model.initial_point()
+    for name, value in values.items():
+        transformed = model.rvs_to_transforms[model[name]]
+        point[model.rvs_to_values[model[name]].name] = transformed.forward(np.float64(value)).eval()
+    point["cohort_share_z"] = z
+    terms = model.compile_fn(model.logp(vars=[model["y"]], sum=False)[0], inputs=model.value_vars,
+                             on_unused_input="ignore", mode="FAST_COMPILE")(point)
+    share = expit(logit(values["eventual"]) + values["cohort_share_sd"] * z[data["cohort"]])
+    scale = values["scale"] * data.extra["age_ref"]
+    t, entry, event = table["time"].to_numpy(), table.get("entry", 0 * table["time"]).to_numpy(), \
+        table["event"].to_numpy()
+    cdf = lambda x: 1.0 - np.exp(-(x / scale) ** values["shape"])  # noqa: E731
+    log_pdf = (np.log(values["shape"] / scale) + (values["shape"] - 1) * np.log(t / scale)
+               - (t / scale) ** values["shape"])
+    expected = np.where(event == 1, np.log(share) + log_pdf, np.log1p(-share * cdf(t)))
+    expected = expected - np.where(entry > 0, np.log1p(-share * cdf(entry)), 0.0)
+    np.testing.assert_allclose(terms, expected, rtol=1e-9, atol=1e-9)

@@ -562,18 +562,34 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     power = np.exp(np.asarray(draws.get("curve_power", np.zeros(len(draws["shape"]))),
                               dtype=float)[picked].reshape(s))
     design = data.extra.get("covariates")
+    # The relaxed model whose cohorts differ in eventual share: each cohort's log-odds shift (S, C).
+    cohort_shift = None
+    if "cohort_share_z" in draws:
+        cohort_shift = (np.asarray(draws["cohort_share_sd"], dtype=float)[picked].reshape(s, 1)
+                        * np.asarray(draws["cohort_share_z"], dtype=float)[picked].reshape(s, -1))
     if design is None:
+        if cohort_shift is not None:
+            share = _shift_odds(share, cohort_shift[..., None])
         return data["cohort"], scale, shape, np.broadcast_to(share, scale.shape), power
     # Each unit its own curve: its cohort's scale shifted by its covariates.
     picked_draws = {name: np.asarray(draws[name])[picked] for name in ("time_effect", "share_effect")
                     if name in draws}
     scale = scale[:, data["cohort"], :] * np.exp(covariates.linear(design, picked_draws,
                                                                    "time_effect"))[..., None]
+    shift = np.zeros((s, data.rows))
     if "share_effect" in picked_draws:
-        logit = np.log(share) - np.log1p(-np.minimum(share, 1.0 - curves.TINY_SURVIVAL))
-        shift = covariates.linear(design, picked_draws, "share_effect")[..., None]
-        share = 1.0 / (1.0 + np.exp(-(logit + shift)))
+        shift = shift + covariates.linear(design, picked_draws, "share_effect")
+    if cohort_shift is not None:
+        shift = shift + cohort_shift[:, data["cohort"]]
+    if "share_effect" in picked_draws or cohort_shift is not None:
+        share = _shift_odds(share, shift[..., None])
     return np.arange(data.rows), scale, shape, np.broadcast_to(share, scale.shape), power
+
+
+def _shift_odds(share: np.ndarray, shift: np.ndarray) -> np.ndarray:
+    """Shares moved by ``shift`` on the log-odds scale."""
+    logit = np.log(share) - np.log1p(-np.minimum(share, 1.0 - curves.TINY_SURVIVAL))
+    return 1.0 / (1.0 + np.exp(-(logit + shift)))
 
 
 def _hazard(family, t, scale, shape, share, power):
