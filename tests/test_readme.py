@@ -82,7 +82,7 @@ def python_blocks(text: str) -> list[str]:
 def sandbox(tmp_path_factory) -> Path:
     place = tmp_path_factory.mktemp("readme")
     (place / ".venv").symlink_to(ROOT / ".venv")
-    for name in ("Makefile", "benchmarks"):
+    for name in ("Makefile", "benchmarks", "scripts"):
         (place / name).symlink_to(ROOT / name)
     # An old pyproject.toml: `make demo` must find the install done, never
     # reinstall the shared .venv from this folder.
