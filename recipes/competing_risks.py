@@ -16,9 +16,20 @@ at the last look) by one multinomial draw.
 Columns: ``cohort``, ``age``, ``exposed`` and one cumulative count column per
 outcome (optional ``group``). Options: ``outcomes`` (the count columns, comma
 separated, at least two), ``family``, ``resolve``, ``pooling``, ``shape_by_group``,
-``centred``.
+``centred`` and ``covariates``.
 Ages enter the model relative to the median positive age, as in
 ``timing-curve``.
+
+Covariates (:mod:`workbench.covariates`). Each covariate column shifts the
+log timing scale of each outcome by its own ``time_effect`` (accelerated
+failure time form of the outcome's times given the outcome) and the
+multinomial log-odds of the outcome shares by ``share_effect`` (the mixture
+model of Larson and Dinse 1985 with logistic shares): under
+``resolve=all`` the log-odds of each later outcome against the first, under
+``resolve=estimate`` the log-odds of every outcome against staying open for
+good. ``scale``, ``shape`` and ``share`` then describe a unit at the numeric
+covariates' means and the labels' reference levels; ``time_ratio`` and
+``odds_ratio`` give each effect per unit of its covariate.
 
 References
 ----------
@@ -31,7 +42,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import cohorts, curves, engine, units
+from workbench import cohorts, covariates, curves, engine, tables, units
 from workbench.recipe import (
     Assumption,
     Column,
@@ -44,6 +55,10 @@ from workbench.recipe import (
 )
 
 NAME = "competing-risks"
+# The unit layout's own columns (workbench.units): never covariates.
+UNIT_COLUMNS = ("time", "outcome", "entry", "cohort", "group")
+# The dimension of the share effects: the outcomes whose log-odds move.
+COMPARED = "compared"
 
 
 def _outcome_list(text: str) -> tuple[str, ...]:
@@ -59,6 +74,13 @@ def _outcome_list(text: str) -> tuple[str, ...]:
 
 
 OUTCOMES = Option("outcomes", "the outcome count columns, comma separated (at least two)", parse=_outcome_list)
+COVARIATES = Option(
+    "covariates",
+    "a comma list of table columns (numbers or labels) that shift each outcome's timing scale "
+    "and the outcome shares (default: none)",
+    parse=covariates.parse_names,
+    default=(),
+)
 RESOLVE = Option(
     "resolve",
     "all (every unit ends in one of the outcomes) or estimate (a share may stay open for good)",
@@ -70,10 +92,18 @@ RESOLVE = Option(
 def validate(table: pd.DataFrame, options: dict) -> Dataset:
     """Check the table: one row per unit when it has a ``time`` column
     (:func:`workbench.units.validate`), else cohort counts (:func:`workbench.cohorts.validate`)."""
+    names = tuple(options.get("covariates", ()))
+    outcomes = list(options["outcomes"])
     if units.is_unit_table(table):
-        data = units.validate(table, list(options["outcomes"]), options, NAME)
+        data = units.validate(table, outcomes, options, NAME)
+        design = covariates.read(table, names, NAME, UNIT_COLUMNS)
     else:
-        data = cohorts.validate(table, list(options["outcomes"]), options, NAME)
+        data = cohorts.validate(table, outcomes, options, NAME)
+        design = covariates.read(table, names, NAME, ("cohort", "age", "exposed", *outcomes, "group"))
+        if design is not None:
+            covariates.constant_within(design, table, *tables.label_column(table, "cohort"))
+            design = design.take(np.asarray([rows[0] for rows in data.source_rows]))
+    data.extra["covariates"] = design
     # What fixes one outcome's curve: its share, scale and shape.
     data.extra["curve_parameters"] = 3
     return data
@@ -91,23 +121,39 @@ def _shares(params: dict, k: int) -> np.ndarray:
     return share * (1.0 - float(params.get("unresolved", 0.0)))
 
 
+def compared(options: dict, outcomes) -> list[str]:
+    """The outcomes whose log-odds the share effects move (against the reference)."""
+    return list(outcomes) if options["resolve"] == "estimate" else list(outcomes)[1:]
+
+
 def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dict) -> Dataset:
     """Follow every unit: draw its outcome, then its age at the end; count per table age.
 
     ``params`` is one draw of the model's variables (``scale`` or
-    ``scale_group``, ``shape``, ``share`` or ``share_logit``) and may carry
+    ``scale_group``, ``shape``, ``share`` or ``share_logit``, with covariates
+    ``time_effect`` (outcomes, covariates) and ``share_effect`` (compared
+    outcomes, covariates) on the model's scale) and may carry
     ``unresolved``, ``curve_power``, ``cohort_sd`` or ``cohort_effect`` and
     ``overdispersion`` to plant faults.
     """
     k = len(data.extra["outcomes"])
+    design = data.extra.get("covariates")
+    # Per row and outcome: the covariates' shift of the log timing scale, and the shares.
+    time_shift = np.broadcast_to(covariates.linear_by(design, params, "time_effect"), (data.rows, k))
+    share = _shares({**params, "unresolved": 0.0}, k)
+    if design is not None and "share_effect" in params:
+        share = covariates.shift_shares(share, covariates.linear_by(design, params, "share_effect"),
+                                        against_open=options["resolve"] == "estimate")
+    share = np.broadcast_to(share, (data.rows, k)) * (1.0 - float(params.get("unresolved", 0.0)))
+    power = float(np.exp(params.get("curve_power", 0.0)))
     if units.is_units(data):
         return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
-                              np.asarray(params["shape"], dtype=float).reshape(-1), _shares(params, k),
-                              power=float(np.exp(params.get("curve_power", 0.0))))
+                              np.asarray(params["shape"], dtype=float).reshape(-1), share,
+                              power=power, log_shift=time_shift)
+    last = data.extra["last_row"]
     counts = cohorts.simulate_units(
-        rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
-        cohorts.shapes_of(data, params, k), _shares(params, k),
-        power=float(np.exp(params.get("curve_power", 0.0))),
+        rng, data, options["family"], cohorts.scales_of(rng, data, params, k) * np.exp(time_shift[last]),
+        cohorts.shapes_of(data, params, k), share[last], power=power,
         rho=float(params.get("overdispersion", 0.0)),
     )
     return data.replace(**{name: counts[:, j] for j, name in enumerate(data.extra["outcomes"])})
@@ -127,8 +173,14 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     estimate = options["resolve"] == "estimate"
     # Log-odds of every part against the first outcome (the reference).
     model_coords["part"] = data.extra["outcomes"][1:] + (["open"] if estimate else [])
+    design = data.extra.get("covariates")
+    if design is not None:
+        model_coords[covariates.DIM] = list(design.effects)
+        model_coords[COMPARED] = compared(options, data.extra["outcomes"])
     with pm.Model(coords=model_coords) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
+        time_shift = (None if design is None
+                      else covariates.shifts(design, prior, "time_effect", over="outcome"))
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=("outcome",))
         logit = prior("share_logit", dims="part")
@@ -137,23 +189,39 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         seen = pt.concatenate([seen, pt.stack([1.0 - seen.sum()])]) if estimate else seen
         log_seen = pt.log(pt.maximum(seen, cohorts.START_MARGIN))
         engine.start_at(logit, log_seen[1:] - log_seen[0], ("part",))
-        parts = pt.special.softmax(pt.concatenate([pt.zeros(1), logit]), axis=-1)
+        log_parts = pt.special.log_softmax(pt.concatenate([pt.zeros(1), logit]), axis=-1)
+        parts = pt.exp(log_parts)
         share = parts[:k]
+        row_share = None
+        if design is not None:
+            # Each row's shares: the reference unit's multinomial log-odds
+            # against the reference part (open for good under resolve=estimate,
+            # else the first outcome) shifted by its covariates.
+            shift = covariates.shifts(design, prior, "share_effect", over=COMPARED)
+            if estimate:
+                eta = log_parts[:k] - log_parts[k] + shift
+                eta = pt.concatenate([eta, pt.zeros((data.rows, 1))], axis=1)
+            else:
+                eta = pt.concatenate([pt.zeros((data.rows, 1)), logit + shift], axis=1)
+            row_share = pt.special.softmax(eta, axis=-1)[:, :k]
         if estimate:
             pm.Deterministic("open_share", parts[k])
             if relax == "unresolved":
                 # Already relaxed by the estimated open share: stays at its null.
                 pm.Deterministic("unresolved", pt.zeros(()))
         elif relax == "unresolved":
-            share = share * (1.0 - prior("unresolved"))
+            resolved = 1.0 - prior("unresolved")
+            share = share * resolved
+            row_share = None if row_share is None else row_share * resolved
         share = pm.Deterministic("share", share, dims="outcome")
+        row_share = share if row_share is None else row_share
         if unit:
             closed = not estimate and relax != "unresolved"
-            units.likelihood(data, counts, options["family"], scale_group, shape, share, relax, prior,
-                             closed)
+            units.likelihood(data, counts, options["family"], scale_group, shape, row_share, relax, prior,
+                             closed, log_shift=time_shift)
             return model
         cumulative = cohorts.cumulative_tensor(
-            data, options["family"], scale_group, shape, share, relax, prior
+            data, options["family"], scale_group, shape, row_share, relax, prior, log_shift=time_shift,
         )
         pm.Deterministic("cumulative", cumulative, dims=("row", "outcome"))
         cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
@@ -244,13 +312,23 @@ RECIPE = Recipe(
     columns=cohorts.columns(
         Column("<outcome>", "one column per outcome named in 'outcomes': units ended that way by "
                             "that age (cumulative)")),
-    options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED),
+    options=(OUTCOMES, cohorts.FAMILY, RESOLVE, cohorts.POOLING, cohorts.SHAPE_BY_GROUP, cohorts.CENTRED,
+             COVARIATES),
     parameters=(
         *cohorts.TIMING_PARAMETERS,
         # Log-odds against the first outcome: sd 1.5 keeps a share between
         # about 5% and 95% of the pair a priori without favouring either.
         Parameter("share_logit", "log-odds of each later outcome (and the open part) against the first",
                   "normal(0,1.5)"),
+        # As in timing-curve (workbench.covariates.PARAMETERS), one per outcome:
+        # 95% of time ratios between 1/7 and 7 per sd.
+        Parameter("time_effect", "shift of each outcome's log timing scale per sd of a numeric covariate "
+                  "(per level of a label, against its reference level: the first in sorted order)",
+                  "normal(0,1)"),
+        # On the log-odds scale: 95% of odds ratios between 1/20 and 20.
+        Parameter("share_effect", "shift of each outcome's log-odds against the reference (the first "
+                  "outcome; staying open for good under resolve=estimate) per sd of a numeric covariate "
+                  "(per level of a label)", "normal(0,1.5)"),
         # Relaxation parameters (only present in the expanded models).
         Parameter("unresolved", "share of units that never end (resolve=all relaxed)", "beta(1,20)"),
         *cohorts.RELAXATION_PARAMETERS,

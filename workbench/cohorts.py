@@ -388,8 +388,9 @@ def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, rel
     """Cumulative incidence per row and outcome (rows, K) as a PyTensor expression.
 
     ``shape`` is what :func:`timing_shapes` returns; ``share`` is one share
-    per outcome (K,) or per row and outcome (rows, K); ``log_shift`` (rows,),
-    when given, shifts each row's log timing scale (covariates).
+    per outcome (K,) or per row and outcome (rows, K); ``log_shift`` (rows,)
+    or (rows, K), when given, shifts each row's log timing scale, or each
+    outcome's (covariates).
 
     Adds the shared relaxations: ``curve_power`` (F ** exp(curve_power),
     the exponentiated family) and ``cohort_sd`` (a cohort effect on log scale).
@@ -406,7 +407,7 @@ def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, rel
         effect = pm.Deterministic("cohort_effect", sd * z, dims="cohort")
         scale_row = scale_row * pt.exp(effect[data["cohort"]])[:, None]
     if log_shift is not None:
-        scale_row = scale_row * pt.exp(log_shift)[:, None]
+        scale_row = scale_row * pt.exp(log_shift if log_shift.ndim == 2 else log_shift[:, None])
     age = pt.constant(relative_age(data))[:, None]
     # One shape per outcome, or (groups, K) under shape_by_group.
     shape = shape[data["group"]] if shape.ndim == 2 else pt.reshape(shape, (k,))

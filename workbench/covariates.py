@@ -157,20 +157,23 @@ def constant_within(design: Design, table: pd.DataFrame, cohort: np.ndarray, lab
 # --- the story in PyMC ---------------------------------------------------------------------
 
 
-def shifts(design: Design, prior, name: str):
+def shifts(design: Design, prior, name: str, over: str | None = None):
     """The effect parameter ``name`` (dims ``covariate``) and its linear shift per row.
 
-    Also records the effect per unit of each covariate on its interpretable
-    scale: ``time_ratio`` (exp of the log timing shift) for ``time_effect``,
-    ``odds_ratio`` for ``share_effect``.
+    With ``over`` (a model dimension, one effect per covariate and element
+    of it: an outcome) the parameter has dims ``(over, covariate)`` and the
+    shift is (rows, elements). Also records the effect per unit of each
+    covariate on its interpretable scale: ``time_ratio`` (exp of the log
+    timing shift) for ``time_effect``, ``odds_ratio`` for ``share_effect``.
     """
     import pymc as pm
     import pytensor.tensor as pt
 
-    effect = prior(name, dims=DIM)
+    dims = DIM if over is None else (over, DIM)
+    effect = prior(name, dims=dims)
     ratio = {"time_effect": "time_ratio", "share_effect": "odds_ratio"}[name]
-    pm.Deterministic(ratio, pt.exp(effect / design.per_unit), dims=DIM)
-    return pt.dot(pt.constant(design.matrix), effect)
+    pm.Deterministic(ratio, pt.exp(effect / design.per_unit), dims=dims)
+    return pt.dot(pt.constant(design.matrix), effect.T)
 
 
 def linear(design: Design, params: dict, name: str) -> np.ndarray:
@@ -179,6 +182,43 @@ def linear(design: Design, params: dict, name: str) -> np.ndarray:
         return 0.0
     effect = np.asarray(params[name], dtype=float)
     return effect @ design.matrix.T if effect.ndim > 1 else design.matrix @ effect.reshape(-1)
+
+
+def linear_by(design: Design, params: dict, name: str) -> np.ndarray:
+    """The shift per row and element of an effect with one value per element and covariate.
+
+    A draw (elements, effects) gives (rows, elements); ``(S, elements,
+    effects)`` draws give (S, rows, elements); 0 when absent.
+    """
+    if design is None or name not in params:
+        return 0.0
+    effect = np.asarray(params[name], dtype=float)
+    return np.einsum("re,...ke->...rk", design.matrix, effect)
+
+
+def shift_shares(share: np.ndarray, shift: np.ndarray, against_open: bool) -> np.ndarray:
+    """Outcome shares (..., K) moved by ``shift`` on the multinomial log-odds scale.
+
+    ``against_open``: ``shift`` (..., K) moves each outcome's log-odds
+    against the share that never ends (1 - the sum of the shares); else
+    ``shift`` (..., K - 1) moves the later outcomes' log-odds against the
+    first, and the shares add up as ``share`` does.
+    """
+    share = np.asarray(share, dtype=float)
+    tiny = 1e-300
+    if against_open:
+        open_share = np.maximum(1.0 - share.sum(axis=-1, keepdims=True), tiny)
+        eta = np.log(np.maximum(share, tiny)) - np.log(open_share) + shift
+        eta = np.concatenate([eta, np.zeros(eta.shape[:-1] + (1,))], axis=-1)
+        total = 1.0
+    else:
+        total = share.sum(axis=-1, keepdims=True)
+        log_share = np.log(np.maximum(share, tiny))
+        eta = log_share - log_share[..., :1]
+        eta = eta + np.concatenate([np.zeros(np.shape(shift)[:-1] + (1,)), shift], axis=-1)
+    eta = eta - eta.max(axis=-1, keepdims=True)
+    parts = np.exp(eta) / np.exp(eta).sum(axis=-1, keepdims=True)
+    return parts[..., :share.shape[-1]] * total
 
 
 def on_model_scale(design: Design, per_unit_effects) -> np.ndarray:

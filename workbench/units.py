@@ -361,8 +361,8 @@ def likelihood(data: Dataset, units, family: str, scale_group, shape, share, rel
     ``closed`` is True when the shares add up to one by construction (every
     unit ends in an outcome): the survival then has no open part. ``share``
     is one share per outcome (K,) or one per unit and outcome (units, K);
-    ``log_shift`` (units,), when given, shifts each unit's log timing scale
-    (covariates in the accelerated failure time form).
+    ``log_shift`` (units,) or (units, K), when given, shifts each unit's log
+    timing scale, or each outcome's (covariates in the accelerated failure time form).
     """
     import pymc as pm
     import pytensor.tensor as pt
@@ -370,7 +370,7 @@ def likelihood(data: Dataset, units, family: str, scale_group, shape, share, rel
     k = len(data.extra["outcomes"])
     scale = unit_scales(data, scale_group, relax, prior) * data.extra["age_ref"]
     if log_shift is not None:
-        scale = scale * pt.exp(log_shift)[:, None]
+        scale = scale * pt.exp(log_shift if log_shift.ndim == 2 else log_shift[:, None])
     share = share if share.ndim == 2 else pt.reshape(share, (k,))
     power = pt.exp(prior("curve_power")) if relax == "curve_power" else pt.ones(())
     entry = pm.Data("entry", data["entry"].astype(float), dims="unit")
@@ -491,9 +491,11 @@ def simulate(rng: np.random.Generator, data: Dataset, family: str, scales: np.nd
 
     ``scales`` is the timing scale per cohort and outcome (cohorts, K), in
     the model's relative time; ``log_shift`` (units,) shifts each unit's log
-    scale and ``share`` may be one per unit and outcome (covariates).
+    scale, (units, K) each outcome's, and ``share`` may be one per unit and
+    outcome (covariates).
     """
-    scale = scales[data["cohort"]] * data.extra["age_ref"] * np.exp(np.asarray(log_shift, dtype=float))[..., None]
+    shift = np.asarray(log_shift, dtype=float)
+    scale = scales[data["cohort"]] * data.extra["age_ref"] * np.exp(shift[:, None] if shift.ndim == 1 else shift)
     drawn = draw_units(rng, family, data["entry"], data["follow"], scale, shape, share, power)
     return data.replace(time=drawn[:, 0], code=drawn[:, 1].astype(np.int64), age=drawn[:, 0])
 
@@ -574,8 +576,18 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     # Each unit its own curve: its cohort's scale shifted by its covariates.
     picked_draws = {name: np.asarray(draws[name])[picked] for name in ("time_effect", "share_effect")
                     if name in draws}
-    scale = scale[:, data["cohort"], :] * np.exp(covariates.linear(design, picked_draws,
-                                                                   "time_effect"))[..., None]
+    if np.ndim(draws.get("time_effect", np.zeros((1, 1)))) == 3:
+        # One effect per outcome and covariate (competing risks).
+        time_shift = covariates.linear_by(design, picked_draws, "time_effect")
+    else:
+        time_shift = np.asarray(covariates.linear(design, picked_draws, "time_effect"))[..., None]
+    scale = scale[:, data["cohort"], :] * np.exp(time_shift)
+    if np.ndim(draws.get("share_effect", np.zeros((1, 1)))) == 3:
+        # Multinomial log-odds per outcome: against the open share when one is
+        # estimated (an effect for every outcome), else against the first outcome.
+        shift = covariates.linear_by(design, picked_draws, "share_effect")
+        share = covariates.shift_shares(share, shift, against_open=shift.shape[-1] == k)
+        return np.arange(data.rows), scale, shape, np.broadcast_to(share, scale.shape), power
     shift = np.zeros((s, data.rows))
     if "share_effect" in picked_draws:
         shift = shift + covariates.linear(design, picked_draws, "share_effect")
