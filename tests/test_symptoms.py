@@ -271,3 +271,34 @@ def test_overdispersion_that_remains_under_the_structural_relaxation_is_the_caus
     assert judged["independent_units"].verdict == "broken"
     assert judged["time_homogeneity"].verdict == "doubtful"
     assert judged["time_homogeneity"].symptom_of == "independent_units"
+
+
+def parameter_only(key, parameter, absorbs_misfit=False):
+    # A relaxation whose PSIS-LOO could not decide and that was not refitted:
+    # judged by its parameter against its prior (odds far past the broken 20).
+    return Finding(key, "relaxation", f"relaxation:{parameter}", 0.3, None, "expanded",
+                   {"parameter": parameter, "null": 0.0, "negligible": 0.01, "share_beyond": 1.0,
+                    "prior_share_beyond": 0.85, "odds_ratio": 500.0, "elpd_method": "parameter",
+                    "elpd_diff": None, "elpd_se": None, "absorbs_misfit": absorbs_misfit})
+
+
+def test_a_catch_all_judged_by_its_parameter_alone_is_a_symptom_of_the_structural_cause():
+    # Both relaxations judged by their parameter alone (as when refits were
+    # not affordable): the structural one whose relaxed model makes the
+    # dispersion ordinary is the cause; the catch-all is its symptom.
+    declared = [("cohort_homogeneity", "Cohorts follow the same timing.", "Add a cohort effect."),
+                ("independent_units", "Units behave independently.", "Model the shared influence.")]
+    findings = [
+        Finding("cohort_homogeneity", "ppc", "ppc:cohort_spread", 3.0, 0.0, "spread", {"sides": "greater"}),
+        parameter_only("cohort_homogeneity", "cohort_sd"),
+        Finding("cohort_homogeneity", "ppc_under_relaxation", "ppc:cohort_spread|overdispersion", 2.0, 0.02,
+                "under", {"relaxation_of": "independent_units"}),
+        Finding("independent_units", "ppc", "ppc:dispersion", 3.0, 0.0, "dispersion", {"sides": "greater"}),
+        parameter_only("independent_units", "overdispersion", absorbs_misfit=True),
+        Finding("independent_units", "ppc_under_relaxation", "ppc:dispersion|cohort_sd", 1.1, 0.22,
+                "under", {"relaxation_of": "cohort_homogeneity"}),
+    ]
+    judged = {v.key: v for v in verdicts.decide(declared, findings)}
+    assert judged["cohort_homogeneity"].verdict == "broken"
+    assert judged["independent_units"].verdict == "doubtful"
+    assert judged["independent_units"].symptom_of == "cohort_homogeneity"

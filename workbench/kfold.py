@@ -194,6 +194,7 @@ def refit_untrusted(design, data, main, relaxed: dict[str, Any], seed: int,
     units = len(base_loo["pareto_k"])
     name = list(main.idata["log_likelihood"].data_vars)[0]
     doubted = []
+
     def order(item):
         loo = loo_numbers(item[1])
         return (-pull.get(item[0], 0.0), -(loo["elpd"] - base_loo["elpd"]), item[0])

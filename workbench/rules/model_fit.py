@@ -226,8 +226,9 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
 
     Candidate causes are the broken assumptions with a relaxed fit (judged by
     its gain or by its parameter alone), ranked by :func:`_cause_rank`
-    (structural before the catch-all, then by LOO gain). A broken assumption is a symptom of a candidate when that candidate's
-    relaxed model makes its targeted statistic look ordinary
+    (structural before the catch-all, then by LOO gain). A broken assumption
+    is a symptom of a candidate when that candidate's relaxed model makes its
+    targeted statistic look ordinary
     (:func:`_is_symptom`); a candidate that is itself a symptom of another
     is no cause. The causes left stand together: two broken assumptions,
     each confirmed under the other's relaxation, are both named
