@@ -132,7 +132,7 @@ def test_a_centred_recipe_with_a_funnel_is_refitted_with_its_non_centred_option(
     doc = check_summary(folder)
     [r] = doc["revisions"]
     assert r["assumption"] == "computation" and "centred=false" in r["change"]
-    assert "pooling=partial" in r["design"] and "centred=False" in r["design"]
+    assert "pooling=partial" in r["design"] and "centred=false" in r["design"]
     assert r["after"]["divergences"] < r["before"]["divergences"]
     assert r["after"]["min_ess_bulk"] > r["before"]["min_ess_bulk"]
     advice = next(a["advice"] for a in doc["assumptions"] if a["key"] == "computation")
