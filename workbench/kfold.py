@@ -194,13 +194,13 @@ def refit_untrusted(design, data, main, relaxed: dict[str, Any], seed: int,
     units = len(base_loo["pareto_k"])
     name = list(main.idata["log_likelihood"].data_vars)[0]
     doubted = []
+    loos = {parameter: loo_numbers(fit) for parameter, fit in relaxed.items()}
 
-    def order(item):
-        loo = loo_numbers(item[1])
-        return (-pull.get(item[0], 0.0), -(loo["elpd"] - base_loo["elpd"]), item[0])
+    def order(parameter):
+        return (-pull.get(parameter, 0.0), -(loos[parameter]["elpd"] - base_loo["elpd"]), parameter)
 
-    for parameter, fit in sorted(relaxed.items(), key=order):
-        loo = loo_numbers(fit)
+    for parameter in sorted(relaxed, key=order):
+        loo = loos[parameter]
         high = len(set(base_loo["bad_pareto_k"]) | set(loo["bad_pareto_k"]))
         if not why_not_psis(units, high, base_loo["k_threshold"]):
             continue

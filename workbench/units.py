@@ -571,7 +571,7 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
                         * np.asarray(draws["cohort_share_z"], dtype=float)[picked].reshape(s, -1))
     if design is None:
         if cohort_shift is not None:
-            share = _shift_odds(share, cohort_shift[..., None])
+            share = covariates.shift_shares(share, cohort_shift[..., None], against_open=True)
         return data["cohort"], scale, shape, np.broadcast_to(share, scale.shape), power
     # Each unit its own curve: its cohort's scale shifted by its covariates.
     picked_draws = {name: np.asarray(draws[name])[picked] for name in ("time_effect", "share_effect")
@@ -594,14 +594,8 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     if cohort_shift is not None:
         shift = shift + cohort_shift[:, data["cohort"]]
     if "share_effect" in picked_draws or cohort_shift is not None:
-        share = _shift_odds(share, shift[..., None])
+        share = covariates.shift_shares(share, shift[..., None], against_open=True)
     return np.arange(data.rows), scale, shape, np.broadcast_to(share, scale.shape), power
-
-
-def _shift_odds(share: np.ndarray, shift: np.ndarray) -> np.ndarray:
-    """Shares moved by ``shift`` on the log-odds scale."""
-    logit = np.log(share) - np.log1p(-np.minimum(share, 1.0 - curves.TINY_SURVIVAL))
-    return 1.0 / (1.0 + np.exp(-(logit + shift)))
 
 
 def _hazard(family, t, scale, shape, share, power):
