@@ -6,6 +6,11 @@ same design, data, seed and settings were fitted before). Then:
 * a PSIS-LOO comparison (ArviZ ``compare``): each design's elpd, the
   difference to the best with the standard error of that difference, the
   effective number of parameters and rows whose Pareto k is too high;
+  where PSIS-LOO cannot rank them (fewer than ten units to leave out, or a
+  Pareto k too high in any design) every design is refitted without each
+  fold instead (:mod:`workbench.kfold`, the same folds for all), and with
+  fewer than ten units a gap counts only beyond :data:`SMALL_DIFFERENCE`,
+  whatever its standard error;
 * stacking weights, the mix of predictive distributions that predicts best;
 * the pointwise elpd difference against the recipe's covariate, which shows
   where in the data each design wins;
@@ -195,7 +200,7 @@ def compare(
                    manifest(command=command, data_path=plan.data,
                             data_sha256=checks[0].summary["data"]["sha256"], seed=seed,
                             plan={**plan.to_dict(), "sampling": settings.to_dict()},
-                            started=started))
+                            started=started), say)
     result = CompareResult(checks, doc, folder)
     if write:
         result.files = write_compare(result, command)
@@ -234,6 +239,72 @@ def _api_command(plan: Plan, seed: int) -> str:
 # --- the comparison -----------------------------------------------------------------------
 
 
+def held_out_by_design(checks, labels, elpds: dict, seed: int,
+                       say: Callable[[str], None] = lambda _: None) -> tuple[dict | None, str, str]:
+    """Exact refits of every design when PSIS-LOO cannot rank them: ``(elpds, why, unit)``.
+
+    ``elpds`` is None when PSIS-LOO can decide (at least
+    :data:`workbench.kfold.MIN_LOO_UNITS` units and no Pareto k above
+    :data:`PARETO_K_LIMIT` in any design); otherwise it holds each design's
+    K-fold result (ArviZ's ``ELPDDataLOOKFold``), every design refitted on the
+    same folds so that their held-out densities pair unit by unit. A
+    design whose check already refitted its base model on those folds is
+    not refitted again. ``why`` says why PSIS-LOO could not decide, ``unit``
+    what one pointwise term leaves out (``cohort``, ``row``).
+    """
+    from workbench import engine, kfold
+    from workbench.checks.relaxation import unit_word
+
+    n = int(np.asarray(elpds[labels[0]].elpd_i).size)
+    high: set[int] = set()
+    for e in elpds.values():
+        if e.pareto_k is not None:
+            high |= {int(i) for i in np.flatnonzero(np.asarray(e.pareto_k).ravel() > PARETO_K_LIMIT)}
+    unit = unit_word(checks[0].run.data, n)
+    why = kfold.why_not_psis(n, len(high), PARETO_K_LIMIT, unit)
+    if not why:
+        return None, "", unit
+    done = {label: c.run.refits.base for c, label in zip(checks, labels)
+            if c.run.refits is not None and c.run.refits.base is not None
+            and c.run.refits.base.fold_of is not None}
+    folds = next(iter(done.values())).fold_of if done else kfold.folds_for(n, seed)
+    seeds = engine.seed_stream(seed, *[f"design:{label}" for label in labels])
+    out = {}
+    for check, label in zip(checks, labels):
+        run = check.run
+        name = list(run.fit.idata["log_likelihood"].data_vars)[0]
+        held = done.get(label)
+        if held is None or not np.array_equal(held.fold_of, folds):
+            say(f"refit {label} without each fold: {why}")
+            held = kfold.held_out_elpd(run.design, run.data, None, name, folds, seeds[f"design:{label}"],
+                                       run.settings, say)
+        out[label] = kfold_elpd(held, run.fit, name)
+    return out, why, unit
+
+
+def kfold_elpd(held, fit, name: str):
+    """A K-fold result as ArviZ's ``ELPDDataLOOKFold``, so that ``compare`` ranks and weighs it.
+
+    Its effective number of parameters is the in-sample log pointwise
+    predictive density of the full fit minus the held-out one (Vehtari,
+    Gelman and Gabry 2017, sec. 2.3).
+    """
+    import xarray as xr
+    from arviz_stats.utils import ELPDDataLOOKFold
+    from scipy.special import logsumexp
+
+    ll = np.asarray(fit.idata["log_likelihood"][name].values, dtype=float)
+    ll = ll.reshape(ll.shape[0] * ll.shape[1], -1)
+    lpd = logsumexp(ll, axis=0) - np.log(ll.shape[0])
+    pointwise = np.asarray(held.pointwise, dtype=float)
+    n = pointwise.size
+    return ELPDDataLOOKFold(
+        elpd=float(pointwise.sum()), se=float(np.sqrt(n * np.var(pointwise))),
+        p=float((lpd - pointwise).sum()), n_samples=int(ll.shape[0]), n_data_points=n, scale="log",
+        warning=False, good_k=None, elpd_i=xr.DataArray(pointwise, dims=["unit"]),
+        n_folds=int(held.folds))
+
+
 def loo_by_design(checks, labels) -> dict:
     """PSIS-LOO (pointwise) of each design's main fit, checked to cover the same observations."""
     from workbench.checks.loo import loo_of
@@ -255,7 +326,11 @@ GAP_CAUTIONS = {
 }
 
 
-def comparison_rows(elpds: dict) -> list[dict]:
+FEW_UNITS_CAUTION = (f"fewer than 10 units to leave out: the SE of the gap means nothing, "
+                     f"so only a gap beyond {SMALL_DIFFERENCE:g} counts")
+
+
+def comparison_rows(elpds: dict, few: bool = False) -> list[dict]:
     """The PSIS-LOO comparison with stacking weights, best first, as plain rows.
 
     Each row: ``design``, ``place`` (1 for the best), ``elpd`` and
@@ -264,7 +339,9 @@ def comparison_rows(elpds: dict) -> list[dict]:
     best itself, or a gap within :data:`SE_MULTIPLE` SE or below
     :data:`SMALL_DIFFERENCE`), ``stacking_weight``, ``p_loo``,
     ``high_k_rows`` (row indices with Pareto k above :data:`PARETO_K_LIMIT`)
-    and ``caution`` (plain words, '' when none).
+    and ``caution`` (plain words, '' when none). With ``few`` units the SE
+    of a gap means nothing (Sivula et al. 2022): a design then stands level
+    with the best while its gap is below :data:`SMALL_DIFFERENCE`.
 
     References
     ----------
@@ -287,11 +364,13 @@ def comparison_rows(elpds: dict) -> list[dict]:
             "elpd_se": float(r["se"]),
             "gap": gap,
             "gap_se": gap_se,
-            "level_with_best": place == 1 or too_close_to_call(gap, gap_se),
+            "level_with_best": place == 1 or (abs(gap) < SMALL_DIFFERENCE if few
+                                              else too_close_to_call(gap, gap_se)),
             "stacking_weight": float(r["weight"]),
             "p_loo": float(r["p"]),
             "high_k_rows": [int(i) for i in np.flatnonzero(k > PARETO_K_LIMIT)],
-            "caution": GAP_CAUTIONS.get(str(r.get("diag_diff") or ""), ""),
+            "caution": (FEW_UNITS_CAUTION if few and place > 1
+                        else GAP_CAUTIONS.get(str(r.get("diag_diff") or ""), "")),
         })
     return rows
 
@@ -306,13 +385,22 @@ def too_close_to_call(gap: float, gap_se: float) -> bool:
     return abs(gap) <= SE_MULTIPLE * gap_se or abs(gap) < SMALL_DIFFERENCE
 
 
-def statement(rows: list[dict]) -> tuple[str, str | None]:
+def statement(rows: list[dict], refits: str = "", few: bool = False) -> tuple[str, str | None]:
     """The comparison in words, and the clear winner (None when the top is within two SE).
 
     A design is named best only when every other design's elpd is lower by
-    more than :data:`SE_MULTIPLE` standard errors of the difference.
+    more than :data:`SE_MULTIPLE` standard errors of the difference (with
+    ``few`` units: by more than :data:`SMALL_DIFFERENCE`). ``refits`` is why
+    the elpds come from exact refits instead of PSIS-LOO ('' when they do not).
     """
     best, others = rows[0], rows[1:]
+    if few and not [r for r in others if r["level_with_best"]]:
+        nearest = others[0]
+        text = (f"{best['design']} predicts best: its elpd exceeds {nearest['design']}'s by "
+                f"{nearest['gap']:.1f}, more than {SMALL_DIFFERENCE:g} (with so few units the SE of "
+                f"a gap means nothing, so the gap alone decides)")
+        text += "." if len(others) == 1 else ", and every other design's by more still."
+        return _with_method(text, rows, refits), best["design"]
     close = [r for r in others if r["level_with_best"]]
     far = [r for r in others if not r["level_with_best"]]
 
@@ -328,9 +416,10 @@ def statement(rows: list[dict]) -> tuple[str, str | None]:
         winner = best["design"]
     else:
         names = ", ".join(r["design"] for r in close)
+        rule = (f"below {SMALL_DIFFERENCE:g}, and with so few units their SE means nothing" if few
+                else f"within {SE_MULTIPLE:g} standard errors or below {SMALL_DIFFERENCE:g}")
         text = (f"No clear winner: {best['design']} and {names} predict about equally well "
-                f"(elpd differences {', '.join(diff(r) for r in close)} are within "
-                f"{SE_MULTIPLE:g} standard errors or below {SMALL_DIFFERENCE:g})")
+                f"(elpd differences {', '.join(diff(r) for r in close)} are {rule})")
         if far:
             text += "; " + ", ".join(f"{r['design']} predicts worse by {diff(r)}" for r in far)
         text += "."
@@ -339,13 +428,19 @@ def statement(rows: list[dict]) -> tuple[str, str | None]:
     if small:
         text += (f" Differences below {SMALL_DIFFERENCE:g} ({', '.join(r['design'] for r in small)}) "
                  "are small: their standard errors are themselves uncertain.")
-    flagged = [r for r in rows if r["high_k_rows"]]
-    for r in flagged:
-        text += (f" {r['design']} has {len(r['high_k_rows'])} row(s) with Pareto k above "
-                 f"{PARETO_K_LIMIT:g}; its elpd may be too optimistic.")
+    return _with_method(text, rows, refits), winner
+
+
+def _with_method(text: str, rows: list[dict], refits: str) -> str:
+    """The statement with how the elpds were estimated, the rows to doubt and the weights."""
+    if refits:
+        text += f" Each elpd comes from exact refits without each fold, not PSIS-LOO: {refits}."
+    for r in rows:
+        if r["high_k_rows"]:
+            text += (f" {r['design']} has {len(r['high_k_rows'])} row(s) with Pareto k above "
+                     f"{PARETO_K_LIMIT:g}; its elpd may be too optimistic.")
     weights = ", ".join(f"{r['design']} {r['stacking_weight']:.2f}" for r in rows)
-    text += f" Stacking weights: {weights}."
-    return text, winner
+    return text + f" Stacking weights: {weights}."
 
 
 def point_covariate(design, data, n_points: int) -> tuple[np.ndarray, str]:
@@ -386,11 +481,17 @@ def verdict_table(checks, labels) -> list[dict]:
             for key in order]
 
 
-def document(checks, labels, plan: Plan, settings: engine.Settings, run_manifest: dict) -> dict:
+def document(checks, labels, plan: Plan, settings: engine.Settings, run_manifest: dict,
+             say: Callable[[str], None] = lambda _: None) -> dict:
     """The ``workbench.compare/1`` document."""
+    from workbench import kfold
+
     elpds = loo_by_design(checks, labels)
-    rows = comparison_rows(elpds)
-    text, winner = statement(rows)
+    refitted, why, unit = held_out_by_design(checks, labels, elpds, plan.seed, say)
+    elpds = refitted or elpds
+    few = int(np.asarray(elpds[labels[0]].elpd_i).size) < kfold.MIN_LOO_UNITS
+    rows = comparison_rows(elpds, few=few)
+    text, winner = statement(rows, refits=why, few=few)
     reference = rows[0]["design"]
     first = checks[0]
     x, x_name = point_covariate(first.run.design, first.run.data, int(np.asarray(elpds[reference].elpd_i).size))
@@ -405,6 +506,9 @@ def document(checks, labels, plan: Plan, settings: engine.Settings, run_manifest
                      "priors": dict(spec.priors), "summary": c.summary}
                     for spec, label, c in zip(plan.designs, labels, checks)],
         "comparison": rows,
+        "elpd_method": "k-fold" if refitted else "psis-loo",
+        "why": why,
+        "unit": unit,
         "statement": text,
         "best": winner,
         "reference": reference,
@@ -457,6 +561,7 @@ def slug(label: str) -> str:
 def write_compare(result: CompareResult, command: str) -> dict[str, Path]:
     """compare.json, compare.html, notebook.ipynb and each design's report and summary."""
     from workbench import notebook
+    from workbench.kfold import MIN_LOO_UNITS
     from workbench.report import html as report_html
     from workbench.report import plots
 
@@ -474,7 +579,8 @@ def write_compare(result: CompareResult, command: str) -> dict[str, Path]:
     page = report_html.environment().get_template("compare.html.j2").render(
         doc=result.doc, figure=figure, command=command,
         reports={label: str(p.relative_to(folder)) for label, p in reports.items()},
-        se_multiple=SE_MULTIPLE, k_limit=PARETO_K_LIMIT, small=SMALL_DIFFERENCE)
+        se_multiple=SE_MULTIPLE, k_limit=PARETO_K_LIMIT, small=SMALL_DIFFERENCE,
+        few=len(result.doc["pointwise"]["x"]) < MIN_LOO_UNITS)
     files["report"] = writers.atomic_write(folder / "compare.html", page)
     files["notebook"] = writers.atomic_write(folder / "notebook.ipynb", notebook.for_compare(result.doc))
     return files

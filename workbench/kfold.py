@@ -114,10 +114,15 @@ def fold_model(design, data, relaxation, name: str):
 
 @dataclass
 class KFold:
-    """Held-out log predictive density of every unit, from refits without its fold."""
+    """Held-out log predictive density of every unit, from refits without its fold.
+
+    ``fold_of`` gives each unit's fold, so that other models can be refitted
+    on the same folds and their held-out densities paired unit by unit.
+    """
 
     pointwise: np.ndarray
     folds: int
+    fold_of: np.ndarray | None = None
 
     @property
     def elpd(self) -> float:
@@ -147,7 +152,7 @@ def held_out_elpd(design, data, relaxation, name: str, folds: np.ndarray, seed: 
         ll = fit.idata["log_likelihood"][name].values
         ll = ll.reshape(ll.shape[0] * ll.shape[1], -1)[:, folds == i]
         pointwise[folds == i] = logsumexp(ll, axis=0) - np.log(ll.shape[0])
-    return KFold(pointwise, k)
+    return KFold(pointwise, k, np.asarray(folds))
 
 
 def leapfrog_steps(fit) -> float:
