@@ -272,6 +272,17 @@ def _eventual_is_estimated(options) -> bool:
     return options.get("eventual") == "estimate"
 
 
+def _plateau_advice(options) -> str:
+    if _eventual_is_all(options):
+        return ("Let a share of units never have the event (--set eventual=estimate), or follow "
+                "the oldest cohorts longer before trusting the plateau.")
+    # The share is estimated already: the late events miss the curve's tail or
+    # differ between cohorts.
+    return ("The late events miss what one estimated eventual share and the chosen family predict: "
+            "try another family (--set family=...), let cohorts differ (a cohort or group column), "
+            "or follow the oldest cohorts longer before trusting the plateau.")
+
+
 RECIPE = Recipe(
     name=NAME,
     summary="Units of a cohort have one event at a random age; some may never have it.",
@@ -308,8 +319,7 @@ RECIPE = Recipe(
                 # Planted: a fifth of units never have the event, fitted as if all do.
                 planted=0.2, planted_options={"eventual": "all"},
             ),
-            advice="Let a share of units never have the event (--set eventual=estimate), or follow "
-                   "the oldest cohorts longer before trusting the plateau.",
+            advice=_plateau_advice,
             informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),

@@ -302,3 +302,31 @@ def test_a_catch_all_judged_by_its_parameter_alone_is_a_symptom_of_the_structura
     assert judged["cohort_homogeneity"].verdict == "broken"
     assert judged["independent_units"].verdict == "doubtful"
     assert judged["independent_units"].symptom_of == "cohort_homogeneity"
+
+
+def test_an_alarm_explained_by_a_symptom_relaxation_is_part_of_the_same_cascade():
+    # Real-data shape (lifelines' waltons flies by genotype): the cohort
+    # relaxation is the cause; the curve relaxation gains but is its symptom;
+    # the plateau alarm, with no relaxation of its own, is ordinary only under
+    # the curve relaxation. Nothing singles the plateau out: it follows too.
+    declared = DECLARED + [("eventual_fraction", "The eventual share is as modelled.", "Estimate it.")]
+    curve_ordinary = Finding("time_homogeneity", "ppc", "ppc:late_trend", 1.1, 0.07, "trend", {})
+    curve_under_cause = Finding("time_homogeneity", "ppc_under_relaxation", "ppc:late_trend|cohort_sd", 1.0,
+                                0.2, "under", {"relaxation_of": "no_missing_exit"})
+    plateau = Finding("eventual_fraction", "ppc", "ppc:plateau_level", 4.0, 0.0015, "plateau", {})
+    plateau_under_curve = Finding("eventual_fraction", "ppc_under_relaxation", "ppc:plateau_level|curve_power",
+                                  1.0, 0.49, "under", {"relaxation_of": "time_homogeneity"})
+    plateau_under_cause = Finding("eventual_fraction", "ppc_under_relaxation", "ppc:plateau_level|cohort_sd",
+                                  4.2, 0.001, "under", {"relaxation_of": "no_missing_exit"})
+    findings = [relaxation("no_missing_exit", "cohort_sd", 34.0), relaxation("time_homogeneity", "curve_power", 22.0),
+                curve_ordinary, curve_under_cause, plateau, plateau_under_curve, plateau_under_cause]
+    judged = {v.key: v for v in verdicts.decide(declared, findings)}
+    assert judged["no_missing_exit"].verdict == "broken"
+    assert judged["time_homogeneity"].symptom_of == "no_missing_exit"
+    assert judged["eventual_fraction"].verdict == "doubtful"
+    assert judged["eventual_fraction"].symptom_of == "no_missing_exit"
+    assert "'time_homogeneity' is relaxed" in judged["eventual_fraction"].advice
+    # Without the curve relaxation's explanation the plateau alarm stands.
+    plateau_under_curve.p_value = 0.001
+    judged = {v.key: v for v in verdicts.decide(declared, findings)}
+    assert judged["eventual_fraction"].verdict == "broken"

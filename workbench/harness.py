@@ -362,7 +362,7 @@ def run_check(
     derived = getattr(getattr(design, "recipe", None), "derived", None)
     if derived is not None:
         context.extras["derived"] = summarise_draws(derived(data, design.options, main.draws()))
-    declared = [(a.key, a.statement, a.advice) for a in design.assumptions]
+    declared = [(a.key, a.statement, a.advice_for(design.options)) for a in design.assumptions]
     judged = verdicts.decide(declared, findings, uninformed)
     context.extras["revisions"] = revised
     for record in revised:

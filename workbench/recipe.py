@@ -155,12 +155,19 @@ class Assumption:
     statement: str
     statistic: Statistic | None = None
     relaxation: Relaxation | None = None
-    advice: str = ""
+    # What to try when the assumption fails: text, or ``advice(options) ->
+    # str`` when the remedy depends on the design (an option already set is
+    # no remedy).
+    advice: str | Callable[[Mapping[str, Any]], str] = ""
     # ``informed_by(data) -> str``: "" when the table can inform the
     # assumption, else why it cannot (one cohort cannot differ from others);
     # the assumption is then `unchecked` with that reason, and neither its
     # statistic nor its relaxation is judged.
     informed_by: Callable[["Dataset"], str] | None = None
+
+    def advice_for(self, options: Mapping[str, Any]) -> str:
+        """The advice under the design's options."""
+        return self.advice(options) if callable(self.advice) else self.advice
 
     def uninformed(self, data: "Dataset") -> str:
         """Why ``data`` cannot inform this assumption ("" when it can)."""

@@ -258,6 +258,19 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
         if cause is not None:
             _demote(v, cause, f"once that assumption is relaxed this one's statistic looks "
                               f"ordinary ({p_equals(_p_under(v, cause))})")
+    # An alarm with no relaxation of its own that a demoted candidate's relaxed
+    # model explains belongs to the same cascade: with another expansion that
+    # makes its statistic ordinary, nothing singles this assumption out.
+    demoted = [c for c in relaxed if c.symptom_of]
+    for v in verdicts:
+        if v.verdict != BROKEN or _relaxed(v) or v.key in (COMPUTATION, PRIORS):
+            continue
+        link = next((c for c in demoted if _explains(c, v)), None)
+        root = next((c for c in causes if link is not None and c.key == link.symptom_of), None)
+        if root is not None:
+            _demote(v, root, f"its statistic looks ordinary once '{link.key}' is relaxed "
+                             f"({p_equals(_p_under(v, link))}), and '{link.key}' is itself to be "
+                             f"revisited after '{root.key}'")
     for v in causes:
         v.confirmed_with = [c.key for c in causes if c is not v]
     for v in verdicts:
