@@ -9,7 +9,9 @@ hazard only marginally (Cox coefficient about -0.38, p about 0.06 in Fox's
 appendix on Cox regression; from memory).
 
 A strong difference between groups must be named as the cause with nothing
-else broken; a marginal one and a single cohort must not be called broken.
+else broken (as cumulative counts per genotype, where the overdispersed
+likelihood gains most, it must still come first); a marginal one and a
+single cohort must not be called broken.
 """
 
 from __future__ import annotations
@@ -36,6 +38,34 @@ def test_fly_genotypes_differ_in_timing_and_nothing_else_is_named(tmp_path, fast
     verdicts = _check(tmp_path, table, fast_settings).verdicts()
     broken = sorted(k for k, v in verdicts.items() if v == "broken")
     assert broken == ["cohort_homogeneity"], verdicts
+
+
+def test_genotypes_in_cohort_counts_are_a_cohort_cause_that_the_catch_all_does_not_outrank(
+        tmp_path, fast_settings):
+    # The same flies as cumulative deaths at common ages per genotype (the 7
+    # censored controls dropped, as the cohort layout cannot hold them). The
+    # overdispersed likelihood gains most here (it absorbs any misfit of two
+    # large cohorts), yet the genotype difference must stay a cause, named first.
+    from lifelines.datasets import load_waltons
+    from workbench import verdicts as verdict_rules
+
+    flies = load_waltons()
+    flies = flies[flies["E"] == 1]
+    table = pd.DataFrame([{"cohort": g, "age": float(a), "exposed": len(d), "events": int((d["T"] <= a).sum())}
+                          for g, d in flies.groupby("group") for a in range(10, 80, 10)])
+    result = _check(tmp_path, table, fast_settings)
+    ranked = {v.key: v for v in result.run.verdicts}
+    cohort = ranked["cohort_homogeneity"]
+    assert cohort.verdict == "broken" and not cohort.symptom_of, result.verdicts()
+    broken = [v.key for v in result.run.verdicts if v.verdict == "broken"]
+    assert broken[0] == "cohort_homogeneity", broken
+    assert set(broken) <= {"cohort_homogeneity", "independent_units"}, broken
+    line = verdict_rules.headline(result.run.verdicts)
+    assert "Cohorts differ in timing" in line.partition("Next step:")[2], line
+    # Two cohorts: every relaxation is judged by exact refits, and says so.
+    relaxations = [f for f, _ in cohort.evidence if f.kind == "relaxation"]
+    assert relaxations and all(f.numbers["elpd_method"] == "k-fold" for f in relaxations)
+    assert all("only 2 cohorts to leave out" in f.detail for f in relaxations)
 
 
 def test_a_marginal_group_effect_and_a_single_cohort_are_not_called_broken(tmp_path, fast_settings):

@@ -330,3 +330,59 @@ def test_an_alarm_explained_by_a_symptom_relaxation_is_part_of_the_same_cascade(
     plateau_under_curve.p_value = 0.001
     judged = {v.key: v for v in verdicts.decide(declared, findings)}
     assert judged["eventual_fraction"].verdict == "broken"
+
+
+def _cohort_layout_findings(p_cohort_under_catch_all: float, cohort_gain: float | None):
+    """Two cohorts that differ in timing, aggregated: the catch-all gains most of all."""
+    declared = [("cohort_homogeneity", "Cohorts follow the same timing.", "Add a cohort effect."),
+                ("independent_units", "Units of a cohort are independent.", "Model a batch effect.")]
+    cohort = relaxation("cohort_homogeneity", "cohort_sd", cohort_gain if cohort_gain is not None else 0.0)
+    if cohort_gain is None:
+        cohort.numbers.update(elpd_method="parameter", odds_ratio=40.0)
+    catch_all = relaxation("independent_units", "overdispersion", 235.0)
+    catch_all.numbers["absorbs_misfit"] = True
+    findings = [cohort, catch_all,
+                Finding("cohort_homogeneity", "ppc", "ppc:cohort_spread", 18.0, 0.0005, "spread", {}),
+                Finding("cohort_homogeneity", "ppc_under_relaxation", "ppc:cohort_spread|overdispersion", 1.5,
+                        p_cohort_under_catch_all, "under", {"relaxation_of": "independent_units"}),
+                Finding("independent_units", "ppc", "ppc:dispersion", 17.0, 0.0005, "dispersion", {}),
+                Finding("independent_units", "ppc_under_relaxation", "ppc:dispersion|cohort_sd", 15.0, 0.0005,
+                        "under", {"relaxation_of": "cohort_homogeneity"})]
+    return {v.key: v for v in verdicts.decide(declared, findings)}
+
+
+def test_a_catch_all_that_leaves_a_clear_structural_alarm_in_the_tail_does_not_absorb_it():
+    # Shape of lifelines' waltons flies aggregated by genotype: the cohort
+    # relaxation gains clearly; under the catch-all the cohort statistic is
+    # still at p = 0.025. Both stand, the structural one first.
+    judged = _cohort_layout_findings(0.025, cohort_gain=110.0)
+    assert judged["cohort_homogeneity"].verdict == "broken"
+    assert not judged["cohort_homogeneity"].symptom_of
+    assert judged["cohort_homogeneity"].confirmed_with == ["independent_units"]
+    assert list(judged)[0] == "cohort_homogeneity"
+
+
+def test_a_catch_all_that_makes_a_structural_alarm_typical_absorbs_it():
+    # Planted overdispersion on the timing-curve demo layout: p = 0.36 under the catch-all.
+    judged = _cohort_layout_findings(0.36, cohort_gain=110.0)
+    assert judged["cohort_homogeneity"].symptom_of == "independent_units"
+    # Without a clear held-out gain of its own, a merely ordinary statistic suffices.
+    assert _cohort_layout_findings(0.025, cohort_gain=None)["cohort_homogeneity"].symptom_of == "independent_units"
+
+
+def test_a_relaxation_the_data_do_not_need_explains_nothing():
+    # The cause has two expansions; the one its data need leaves the other
+    # assumption's statistic rare, the one they do not need (the base model
+    # again) leaves it ordinary. The other assumption's relaxation gain stands.
+    unneeded = relaxation("no_missing_exit", "cohort_share_sd", 0.0)
+    unneeded.numbers["share_beyond"] = 0.5
+    findings = [relaxation("no_missing_exit", "dormant", 40.0), unneeded,
+                relaxation("time_homogeneity", "stay_drift", 12.0),
+                Finding("time_homogeneity", "ppc", "ppc:period_trend", 0.5, 0.2, "trend", {}),
+                Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|dormant", 0.5, 0.001,
+                        "under", {"relaxation_of": "no_missing_exit"}),
+                Finding("time_homogeneity", "ppc_under_relaxation", "ppc:period_trend|cohort_share_sd", 0.5, 0.16,
+                        "under", {"relaxation_of": "no_missing_exit"})]
+    judged = by_key(findings)
+    assert judged["time_homogeneity"].verdict == "broken"
+    assert not judged["time_homogeneity"].symptom_of
