@@ -148,7 +148,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     power = float(np.exp(params.get("curve_power", 0.0)))
     if units.is_units(data):
         return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
-                              np.asarray(params["shape"], dtype=float).reshape(-1), share,
+                              cohorts.shapes_of(data, params, k), share,
                               power=power, log_shift=time_shift)
     last = data.extra["last_row"]
     counts = cohorts.simulate_units(

@@ -109,7 +109,7 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
         share = 1.0 / (1.0 + np.exp(-(logit + covariates.linear(design, params, "share_effect"))))[:, None]
     if units.is_units(data):
         return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
-                              params["shape"], share,
+                              cohorts.shapes_of(data, params, 1), share,
                               power=float(np.exp(params.get("curve_power", 0.0))), log_shift=time_shift)
     last = data.extra["last_row"]
     counts = cohorts.simulate_units(

@@ -80,3 +80,32 @@ def test_a_marginal_group_effect_and_a_single_cohort_are_not_called_broken(tmp_p
     assert not [k for k, v in one.items() if v == "broken"], one
     # One cohort cannot differ from others: unchecked, never holds or doubtful.
     assert one["cohort_homogeneity"] == "unchecked"
+
+
+def test_fly_genotypes_with_their_own_curve_shapes_match_lifelines_per_genotype(tmp_path, fast_settings):
+    # lifelines.WeibullFitter fitted to each genotype alone (its shipped
+    # waltons dataset): with shape_by_group each group has its own scale and
+    # shape, unpooled with two groups, so the posteriors must agree with the
+    # per-genotype maximum-likelihood fits within posterior uncertainty.
+    from lifelines import WeibullFitter
+    from lifelines.datasets import load_waltons
+
+    flies = load_waltons()
+    table = pd.DataFrame({"time": flies["T"].astype(float), "event": flies["E"], "group": flies["group"]})
+    path = tmp_path / "flies.csv"
+    table.to_csv(path, index=False)
+    from workbench import api
+
+    result = api.check("timing-curve", path, options={"shape_by_group": "true"}, settings=fast_settings,
+                       write=False, history=False)
+    verdicts = result.verdicts()
+    assert not [k for k, v in verdicts.items() if v == "broken"], verdicts
+    # One cohort per group: nothing to compare within a group.
+    assert verdicts["cohort_homogeneity"] == "unchecked"
+    estimates = result.run.extras["parameters"]
+    age_ref = result.run.data.extra["age_ref"]
+    for genotype, flies_of in flies.groupby("group"):
+        fitted = WeibullFitter().fit(flies_of["T"], flies_of["E"])
+        shape, scale = estimates[f"shape[{genotype}]"], estimates[f"scale[{genotype}]"]
+        assert abs(shape["mean"] - fitted.rho_) < 2 * shape["sd"], (genotype, shape, fitted.rho_)
+        assert abs(scale["mean"] * age_ref - fitted.lambda_) < 2 * scale["sd"] * age_ref, (genotype, scale)

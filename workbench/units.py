@@ -159,10 +159,11 @@ def validate(table: pd.DataFrame, outcomes: list[str] | None, options: dict, rec
     if not (code > 0).any():
         raise DataError(f"column '{indicator}': expected at least one unit with "
                         f"{'the event' if outcomes is None else 'an outcome'}; found none")
-    cohort, cohort_labels = (tables.label_column(table, "cohort") if "cohort" in table.columns
-                             else (np.zeros(len(table), dtype=np.int64), ["all"]))
     group, group_labels = (tables.label_column(table, "group") if "group" in table.columns
                            else (np.zeros(len(table), dtype=np.int64), ["all"]))
+    # Without a cohort column the units of a group form one cohort.
+    cohort, cohort_labels = (tables.label_column(table, "cohort") if "cohort" in table.columns
+                             else (group.copy(), list(group_labels)))
     cohort_group = np.zeros(len(cohort_labels), dtype=np.int64)
     first: dict[int, int] = {}
     for i, (c, g) in enumerate(zip(cohort, group)):
@@ -377,8 +378,10 @@ def likelihood(data: Dataset, units, family: str, scale_group, shape, share, rel
     follow = pm.Data("follow", data["follow"].astype(float), dims="unit")
     logp = partial(_logp, family=family, closed=closed, powered=relax == "curve_power")
     random = partial(_random, family=family)
+    # One shape per outcome, or (groups, K) under shape_by_group: each unit its group's.
+    shape = shape[data["group"]] if shape.ndim == 2 else pt.reshape(shape, (k,))
     return pm.CustomDist(
-        "y", entry, follow, scale, pt.reshape(shape, (k,)), share, power,
+        "y", entry, follow, scale, shape, share, power,
         pt.zeros(len(FIELDS)),
         logp=logp, random=random, signature="(),(),(k),(k),(k),(),(f)->(f)",
         observed=units, dims=("unit", "field"),
@@ -412,7 +415,7 @@ def _logp(value, entry, follow, scale, shape, share, power, fields, family, clos
     import pytensor.tensor as pt
 
     share = share if share.ndim == 2 else pt.reshape(share, (-1,))
-    shape = pt.reshape(shape, (-1,))
+    shape = shape if shape.ndim == 2 else pt.reshape(shape, (-1,))
     power = pt.reshape(power, ())
     t, code = value[:, 0], value[:, 1]
     log_density = pt.log(share) + curves.log_density_tensor(family, t[:, None], scale, shape)
@@ -437,9 +440,10 @@ def _random(entry, follow, scale, shape, share, power, fields, rng=None, size=No
     n = np.shape(entry)[-1] if size is None else int(size[-1])
     k = np.shape(scale)[-1]
     share = np.broadcast_to(share, (n, k)) if np.ndim(share) >= 2 else np.reshape(share, (-1,))[-k:]
+    shape = np.broadcast_to(shape, (n, k)) if np.ndim(shape) >= 2 else np.reshape(shape, (-1,))[-k:]
     return draw_units(
         rng, family, np.broadcast_to(entry, (n,)), np.broadcast_to(follow, (n,)),
-        np.broadcast_to(scale, (n, k)), np.reshape(shape, (-1,))[-k:], share,
+        np.broadcast_to(scale, (n, k)), shape, share,
         float(np.reshape(power, (-1,))[0]),
     )
 
@@ -462,9 +466,9 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
     entry, follow = np.asarray(entry, dtype=float), np.asarray(follow, dtype=float)
     scale = np.asarray(scale, dtype=float)
     n, k = scale.shape
-    shape = np.broadcast_to(np.asarray(shape, dtype=float), (k,))
+    shape = np.broadcast_to(np.asarray(shape, dtype=float), (n, k))
     share = np.broadcast_to(np.asarray(share, dtype=float), (n, k))
-    reached = curves.cdf(family, entry[:, None], scale, shape[None, :]) ** power  # F_k(entry)^p
+    reached = curves.cdf(family, entry[:, None], scale, shape) ** power  # F_k(entry)^p
     weight = np.column_stack([share * (1.0 - reached), np.maximum(1.0 - share.sum(axis=1), 0.0)])
     weight = weight / weight.sum(axis=1, keepdims=True)
     outcome = (rng.random(n)[:, None] > np.cumsum(weight, axis=1)[:, :-1]).sum(axis=1)
@@ -475,11 +479,11 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
             continue
         late = entry[who] > 0
         if power == 1.0 and not late.any():
-            times[who] = curves.draw_times(rng, family, scale[who, j], shape[j], who.size)
+            times[who] = curves.draw_times(rng, family, scale[who, j], shape[who, j], who.size)
         else:
             low = reached[who, j]
             u = low + rng.random(who.size) * (1.0 - low)
-            times[who] = curves.quantile(family, u ** (1.0 / power), scale[who, j], shape[j])
+            times[who] = curves.quantile(family, u ** (1.0 / power), scale[who, j], shape[who, j])
     times = np.maximum(times, entry + curves.TINY_TIME * np.maximum(entry, 1.0))
     seen = times <= follow
     return np.column_stack([np.where(seen, times, follow), np.where(seen, outcome + 1, 0)]).astype(float)
@@ -490,12 +494,15 @@ def simulate(rng: np.random.Generator, data: Dataset, family: str, scales: np.nd
     """New outcomes for the units of ``data`` (same entries and censoring times).
 
     ``scales`` is the timing scale per cohort and outcome (cohorts, K), in
-    the model's relative time; ``log_shift`` (units,) shifts each unit's log
-    scale, (units, K) each outcome's, and ``share`` may be one per unit and
-    outcome (covariates).
+    the model's relative time; ``shape`` is one per outcome (K,) or per cohort
+    and outcome (cohorts, K) (``shape_by_group``); ``log_shift`` (units,)
+    shifts each unit's log scale, (units, K) each outcome's, and ``share``
+    may be one per unit and outcome (covariates).
     """
     shift = np.asarray(log_shift, dtype=float)
     scale = scales[data["cohort"]] * data.extra["age_ref"] * np.exp(shift[:, None] if shift.ndim == 1 else shift)
+    shape = np.asarray(shape, dtype=float)
+    shape = shape[data["cohort"]] if shape.ndim == 2 else shape
     drawn = draw_units(rng, family, data["entry"], data["follow"], scale, shape, share, power)
     return data.replace(time=drawn[:, 0], code=drawn[:, 1].astype(np.int64), age=drawn[:, 0])
 
@@ -547,7 +554,7 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     """The curves of the ``picked`` draws, one per cohort or, with covariates, per unit.
 
     Returns the curve of each unit (n,), and per draw the scale (S, L, K) in
-    table time, shape (S, K), share (S, L, K) and power (S,) of the L curves.
+    table time, shape (S, L, K), share (S, L, K) and power (S,) of the L curves.
     """
     from workbench import covariates
 
@@ -559,7 +566,12 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     if "cohort_effect" in draws:
         effect = np.asarray(draws["cohort_effect"], dtype=float)[picked]
         scale = scale * np.exp(effect.reshape(s, -1, 1))
-    shape = np.asarray(draws["shape"], dtype=float)[picked].reshape(s, k)
+    # One shape per outcome, or per group and outcome (shape_by_group): per cohort (S, C, K).
+    n_groups = len(data.labels["group"])
+    raw = np.asarray(draws.get("shape_group", draws["shape"]), dtype=float)[picked].reshape(s, -1)
+    by_group = raw.shape[1] == n_groups * k and n_groups > 1
+    shape = (raw.reshape(s, n_groups, k) if by_group
+             else np.broadcast_to(raw.reshape(s, 1, k), (s, n_groups, k)))[:, data.extra["cohort_group"], :]
     share = np.asarray(draws["share"], dtype=float)[picked].reshape(s, 1, k)
     power = np.exp(np.asarray(draws.get("curve_power", np.zeros(len(draws["shape"]))),
                               dtype=float)[picked].reshape(s))
@@ -582,6 +594,7 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     else:
         time_shift = np.asarray(covariates.linear(design, picked_draws, "time_effect"))[..., None]
     scale = scale[:, data["cohort"], :] * np.exp(time_shift)
+    shape = shape[:, data["cohort"], :]
     if np.ndim(draws.get("share_effect", np.zeros((1, 1)))) == 3:
         # Multinomial log-odds per outcome: against the open share when one is
         # estimated (an effect for every outcome), else against the first outcome.
@@ -599,8 +612,8 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
 
 
 def _hazard(family, t, scale, shape, share, power):
-    """Cumulative hazard -log S(t); t (S, n), scale and share (S, n, K), shape (S, K), power (S,)."""
-    f = curves.cdf(family, t[..., None], scale, shape[:, None, :]) ** power[:, None, None]
+    """Cumulative hazard -log S(t); t (S, n), scale, shape and share (S, n, K), power (S,)."""
+    f = curves.cdf(family, t[..., None], scale, shape) ** power[:, None, None]
     survival = 1.0 - (share * f).sum(axis=-1)
     return -np.log(np.maximum(survival, curves.TINY_SURVIVAL))
 
@@ -631,12 +644,12 @@ def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
         m = picked[part].size
         t, code = y[picked[part], :, 0], y[picked[part], :, 1]
         scale = scale_c[part][:, curve, :]
-        args = (shape[part], share_c[part][:, curve, :], power[part])
+        args = (shape[part][:, curve, :], share_c[part][:, curve, :], power[part])
         h_t = _hazard(family, t, scale, *args)
         h_e = _hazard(family, np.broadcast_to(entry, t.shape), scale, *args) if entry.any() else 0.0 * h_t
         # H at the inner bin edges per draw and curve (S, L, B-1).
         edge_scale = scale_c[part][:, :, None, :]
-        f = curves.cdf(family, finite[None, None, :, None], edge_scale, shape[part][:, None, None, :])
+        f = curves.cdf(family, finite[None, None, :, None], edge_scale, shape[part][:, :, None, :])
         f = f ** power[part][:, None, None, None]
         h_edge = -np.log(np.maximum(1.0 - (share_c[part][:, :, None, :] * f).sum(-1), curves.TINY_SURVIVAL))
         h_edge = np.concatenate([np.zeros((m, n_curves, 1)), h_edge, np.full((m, n_curves, 1), np.inf)], 2)
