@@ -108,3 +108,22 @@ def test_the_demo_hands_its_true_values_to_the_report(tmp_path, monkeypatch):
     demo.run("threshold-geometry", out=tmp_path / "demo")
     written = json.loads((tmp_path / "demo" / "demo-truth.json").read_text())
     assert seen["truth"] == written["truth"]
+
+
+def test_elements_of_a_two_dimensional_effect_are_labelled_by_their_coordinates():
+    # Prior checks and calibration name an element as the parameter table does.
+    from workbench import calibration
+    from workbench.checks import prior
+
+    coords = {"move": ["larva>spat", "spat>lost"], "covariate": ["temp_c", "feed=paste"]}
+    truth = np.arange(4.0).reshape(2, 2)
+    labels = [label for label, _, _ in calibration._elements(
+        "move_effect", truth, np.zeros((10, 2, 2)), ("move", "covariate"), coords)]
+    assert labels == ["move_effect[larva>spat, temp_c]", "move_effect[larva>spat, feed=paste]",
+                      "move_effect[spat>lost, temp_c]", "move_effect[spat>lost, feed=paste]"]
+    # Without coordinates the positions stand in.
+    assert estimates.labels_by_coords("b", None, {}, (2,)) == ["b[0]", "b[1]"]
+    tree = xr.DataTree.from_dict({"posterior": xr.Dataset(
+        {"move_effect": (("chain", "draw", "move", "covariate"), np.zeros((1, 3, 2, 2)))}, coords=coords)})
+    assert prior._element_label(tree, "move_effect", 2, 4) == "move_effect[spat>lost, temp_c]"
+    assert prior._element_label(tree, "move_effect", 0, 1) == "move_effect"

@@ -109,3 +109,31 @@ def test_fly_genotypes_with_their_own_curve_shapes_match_lifelines_per_genotype(
         shape, scale = estimates[f"shape[{genotype}]"], estimates[f"scale[{genotype}]"]
         assert abs(shape["mean"] - fitted.rho_) < 2 * shape["sd"], (genotype, shape, fitted.rho_)
         assert abs(scale["mean"] * age_ref - fitted.lambda_) < 2 * scale["sd"] * age_ref, (genotype, scale)
+
+
+def test_a_censored_model_file_on_the_arrest_follow_up_is_not_broken(tmp_path, fast_settings):
+    # The Weibull lifetime model file written with pm.Censored, on lifelines'
+    # rossi table (weeks to first arrest, censored at 52 weeks for the 318
+    # not arrested; time in tens of weeks for the file's priors). Its
+    # replicates must be censored as the data were, or `predictions` would
+    # call a fitting model broken. lifelines.WeibullFitter on the same table
+    # gives the reference shape and scale.
+    from pathlib import Path
+
+    from lifelines import WeibullFitter
+    from lifelines.datasets import load_rossi
+    from workbench import api
+
+    rossi = load_rossi()
+    table = pd.DataFrame({"hours": rossi["week"] / 10.0, "failed": rossi["arrest"]})
+    path = tmp_path / "arrests.csv"
+    table.to_csv(path, index=False)
+    model = Path(__file__).parent / "model_files" / "censored_lifetimes.py"
+    result = api.check(str(model), path, settings=fast_settings, write=False, history=False)
+    verdicts = result.verdicts()
+    assert not [k for k, v in verdicts.items() if v == "broken"], verdicts
+    assert verdicts["predictions"] != "broken"
+    fitted = WeibullFitter().fit(table["hours"], table["failed"])
+    estimates = result.run.extras["parameters"]
+    for name, reference in (("alpha", fitted.rho_), ("beta", fitted.lambda_)):
+        assert abs(estimates[name]["mean"] - reference) < 2 * estimates[name]["sd"], (name, estimates[name], reference)

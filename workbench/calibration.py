@@ -246,6 +246,9 @@ class _Compiled:
         # Many refits of one compiled model: nutpie's native wrappers pay.
         self.sampler = Sampler(self.model, fits=None)
         self.free = [rv.name for rv in self.model.free_RVs]
+        # Each element's label by the model's coordinates (move_effect[larva>spat, temp_c]).
+        self.dims = {name: self.model.named_vars_to_dims.get(name) for name in self.free}
+        self.coords = {dim: list(values) for dim, values in self.model.coords.items() if values is not None}
         self._draws: dict[str, tuple] = {}
         self._logliks: dict[tuple, tuple] = {}
         self.lock = threading.Lock()
@@ -321,7 +324,7 @@ class _Compiled:
         for name in self.free:
             pooled = posterior[name].reshape((total,) + posterior[name].shape[2:])[positions]
             thinned[name] = pooled
-            for label, true, draws in _elements(name, truth[name], pooled):
+            for label, true, draws in _elements(name, truth[name], pooled, self.dims[name], self.coords):
                 ranks[label] = _rank(true, draws, rng)
         containers = tuple(observed)
         true_ll = self._loglik(containers, [truth[n] for n in self.free], observed)
@@ -445,13 +448,20 @@ def _min_ess(posterior: dict[str, np.ndarray]) -> float:
     return lowest
 
 
-def _elements(name: str, truth: np.ndarray, draws: np.ndarray):
-    """(label, true value, draws) for each scalar element: ``name`` or ``name[i,j]``."""
+def _elements(name: str, truth: np.ndarray, draws: np.ndarray, dims=None, coords=None):
+    """(label, true value, draws) for each scalar element: ``name`` or ``name[a, b]``.
+
+    Elements are labelled by the model's coordinates where ``dims`` and
+    ``coords`` give them, else by position.
+    """
+    from workbench.estimates import labels_by_coords
+
     if truth.ndim == 0:
         yield name, float(truth), draws
         return
-    for idx in np.ndindex(truth.shape):
-        yield f"{name}[{','.join(map(str, idx))}]", float(truth[idx]), draws[(slice(None),) + idx]
+    labels = labels_by_coords(name, dims, coords or {}, truth.shape)
+    for label, idx in zip(labels, np.ndindex(truth.shape)):
+        yield label, float(truth[idx]), draws[(slice(None),) + idx]
 
 
 def _rank(true: float, draws: np.ndarray, rng: np.random.Generator) -> int:

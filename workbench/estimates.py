@@ -122,6 +122,26 @@ def element_labels(var: xr.DataArray) -> list[str]:
             for index in itertools.product(*(range(var.sizes[d]) for d in dims))]
 
 
+def labels_by_coords(name: str, dims, coords, shape: tuple[int, ...]) -> list[str]:
+    """Row-major labels of the elements of ``name`` with ``shape``, read from a model's coordinates.
+
+    ``dims`` are the variable's dimension names (None or too few: positions
+    stand in), ``coords`` the model's coordinate values per dimension: e.g.
+    ``move_effect[larva>spat, temp_c]`` rather than ``move_effect[0]``.
+    """
+    if not shape:
+        return [name]
+    dims = list(dims or ())
+    names = []
+    for index in itertools.product(*(range(n) for n in shape)):
+        parts = []
+        for axis, i in enumerate(index):
+            values = coords.get(dims[axis]) if axis < len(dims) and dims[axis] else None
+            parts.append(str(values[i]) if values is not None and len(values) == shape[axis] else str(i))
+        names.append(f"{name}[{', '.join(parts)}]")
+    return names
+
+
 def beside_truth(idata: xr.DataTree, estimates: Mapping[str, dict],
                  truth: Mapping[str, Any]) -> dict[str, float]:
     """The true value of each estimate whose variable ``truth`` names, by label.

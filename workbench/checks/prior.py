@@ -134,10 +134,24 @@ def _share_below(simulated: np.ndarray, observed: float) -> float:
     return float(np.mean(simulated < observed) + 0.5 * np.mean(simulated == observed))
 
 
-def _prior_tails(prior: dict, posterior: dict, names: list[str]):
+def _element_label(idata, name: str, i: int, size: int) -> str:
+    """The label of element ``i`` (row-major) of a parameter, by its coordinates where it has them."""
+    from workbench.estimates import element_labels
+
+    if size == 1:
+        return name
+    try:
+        labels = element_labels(idata["posterior"][name])
+    except KeyError:
+        labels = []
+    return labels[i] if len(labels) == size else f"{name}[{i}]"
+
+
+def _prior_tails(prior: dict, posterior: dict, names: list[str], idata=None):
     """Per parameter: (label, posterior median, share of prior draws below it, prior draws).
 
-    For a vector parameter, the element whose median sits furthest in a tail.
+    For a vector parameter, the element whose median sits furthest in a tail,
+    labelled by its coordinates when ``idata`` gives them.
     """
     for name in names:
         if name not in prior or name not in posterior:
@@ -147,7 +161,8 @@ def _prior_tails(prior: dict, posterior: dict, names: list[str]):
         share_below = (draws < medians).mean(axis=0)
         tail = np.minimum(share_below, 1.0 - share_below)
         i = int(np.argmin(tail))
-        label = name if draws.shape[1] == 1 else f"{name}[{i}]"
+        label = _element_label(idata, name, i, draws.shape[1]) if idata is not None else (
+            name if draws.shape[1] == 1 else f"{name}[{i}]")
         yield label, float(medians[i]), float(share_below[i]), int(draws.shape[0])
 
 
@@ -164,7 +179,7 @@ def posterior_in_prior_tail(context: Context) -> list[Finding]:
         return []
     findings = []
     for label, median, share_below, n in _prior_tails(fit.draws(group="prior"), fit.draws(),
-                                                      free_parameters(fit)):
+                                                      free_parameters(fit), fit.idata):
         findings.append(
             Finding(
                 assumption=PRIORS,
@@ -198,7 +213,7 @@ def prior_tail_under_relaxations(context: Context) -> list[Finding]:
         relaxation = assumption.relaxation
         if relaxation is None or relaxation.parameter not in context.relaxed:
             continue
-        tails = list(_prior_tails(prior, context.relaxed[relaxation.parameter].draws(), names))
+        tails = list(_prior_tails(prior, context.relaxed[relaxation.parameter].draws(), names, fit.idata))
         beyond = [label for label, _, below, _ in tails if min(below, 1.0 - below) == 0.0]
         findings.append(
             Finding(
@@ -243,7 +258,7 @@ def prior_sensitivity(context: Context) -> list[Finding]:
         ps = np.asarray(prior[name].values, dtype=float).ravel()
         ls = np.asarray(likelihood[name].values, dtype=float).ravel()
         i = int(np.nanargmax(ps)) if np.isfinite(ps).any() else 0
-        label = name if ps.size == 1 else f"{name}[{i}]"
+        label = _element_label(fit.idata, name, i, ps.size)
         findings.append(
             Finding(
                 assumption=PRIORS,
