@@ -38,6 +38,8 @@ from workbench.recipe import Option, Parameter
 NUMERIC_SHARE = 0.5
 # The dimension of the effect parameters.
 DIM = "covariate"
+# Each effect parameter's interpretable form per unit of its covariate.
+RATIOS = {"time_effect": "time_ratio", "share_effect": "odds_ratio", "move_effect": "odds_ratio"}
 
 
 def parse_names(text: str) -> tuple[str, ...]:
@@ -48,13 +50,13 @@ def parse_names(text: str) -> tuple[str, ...]:
     return names
 
 
-COVARIATES = Option(
-    "covariates",
-    "a comma list of table columns (numbers or labels) that shift the timing scale and the "
-    "eventual share (default: none)",
-    parse=parse_names,
-    default=(),
-)
+def option(shifted: str) -> Option:
+    """The ``covariates`` option of a recipe whose covariates shift ``shifted``."""
+    return Option("covariates", f"a comma list of table columns (numbers or labels) that shift {shifted} "
+                                "(default: none)", parse=parse_names, default=())
+
+
+COVARIATES = option("the timing scale and the eventual share")
 
 PARAMETERS = (
     # Per sd of a numeric covariate (per level for labels): 95% of time
@@ -164,15 +166,15 @@ def shifts(design: Design, prior, name: str, over: str | None = None):
     of it: an outcome) the parameter has dims ``(over, covariate)`` and the
     shift is (rows, elements). Also records the effect per unit of each
     covariate on its interpretable scale: ``time_ratio`` (exp of the log
-    timing shift) for ``time_effect``, ``odds_ratio`` for ``share_effect``.
+    timing shift) for ``time_effect``, ``odds_ratio`` for an effect on
+    log-odds (``share_effect``, ``move_effect``).
     """
     import pymc as pm
     import pytensor.tensor as pt
 
     dims = DIM if over is None else (over, DIM)
     effect = prior(name, dims=dims)
-    ratio = {"time_effect": "time_ratio", "share_effect": "odds_ratio"}[name]
-    pm.Deterministic(ratio, pt.exp(effect / design.per_unit), dims=dims)
+    pm.Deterministic(RATIOS[name], pt.exp(effect / design.per_unit), dims=dims)
     return pt.dot(pt.constant(design.matrix), effect.T)
 
 
