@@ -283,3 +283,17 @@ def test_a_check_with_covariates_runs_and_reports_odds_ratios(moved_table, tmp_p
     assert relaxed, "no relaxed model's evidence reached the summary"
     assert {"odds_ratio[new>dropped, temp]", "move_effect[active>done, feed=paste]"} <= set(summary["parameters"])
     assert "odds_ratio[new&gt;dropped, temp]" in (out / "report.html").read_text()
+
+
+def test_the_shipped_hatchery_table_is_what_its_script_writes(tmp_path):
+    # The README's stage-transitions covariate example ships its table and says
+    # the script writes it again byte for byte: the true values in the script
+    # are the ones behind the shipped data.
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    out = tmp_path / "again.csv"
+    subprocess.run([sys.executable, str(root / "scripts" / "hatchery_table.py"), str(out)], check=True, cwd=root)
+    assert out.read_bytes() == (root / "examples" / "oyster_hatchery.csv").read_bytes()
