@@ -12,11 +12,16 @@ a unit with covariates x has times ``exp(x'b)`` as long as a reference unit)
 and the log-odds of the eventual share (the logistic mixture cure model of
 Farewell 1982). The effects are reported per unit of the covariate (per
 level against the reference for labels) as time ratios and odds ratios.
+In ``stage-transitions`` each effect shifts the log-odds of an allowed move
+against staying in the stage (a multinomial logit per source stage,
+McFadden 1974), reported as odds ratios.
 
 References
 ----------
 Farewell, V. T. (1982). The use of mixture models for the analysis of survival
 data with long-term survivors. Biometrics 38(4), 1041-1046.
+McFadden, D. (1974). Conditional logit analysis of qualitative choice
+behavior. In Frontiers in Econometrics, ed. P. Zarembka, 105-142. Academic Press.
 Kalbfleisch, J. D. and Prentice, R. L. (2002). The Statistical Analysis of
 Failure Time Data, 2nd ed. Wiley.
 """
