@@ -663,11 +663,12 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     ``params`` holds ``transition`` (or ``transition_group``), with
     covariates ``move_effect`` (moves, covariates) on the model's scale (a
     unit at the numbers' means and the labels' reference levels moves as
-    ``transition`` says), and may carry ``stay_drift``, ``dormant`` and ``overdispersion`` to plant faults: the
-    stay probability scaled by exp(drift * standardised period), a
-    per-period chance that a transient unit falls silent in its stage for
-    good, and per-period move probabilities shared by a cohort's units
-    (Dirichlet with concentration 1 / overdispersion - 1).
+    ``transition`` says), and may carry ``stay_drift``, ``dormant`` and
+    ``overdispersion`` to plant faults: the stay probability scaled by
+    exp(drift * standardised period), a per-period chance that a transient
+    unit falls silent in its stage for good, and per-period move
+    probabilities shared by a cohort's units (Dirichlet with concentration
+    1 / overdispersion - 1).
     """
     matrices = _matrices_of(data, params)
     drift = float(params.get("stay_drift", 0.0))
@@ -796,25 +797,24 @@ def derived(data: Dataset, options: dict, posterior: dict) -> dict:
     if "transition" in posterior:
         m = np.asarray(posterior["transition"], dtype=float)
         matrices = {"": (m, np.ones(len(start), dtype=bool))}
-        per_cohort = np.broadcast_to(m[:, None], (m.shape[0], len(data.labels["cohort"]), *m.shape[1:]))
+        per_group = np.broadcast_to(m[:, None], (m.shape[0], len(data.labels["group"]), *m.shape[1:]))
     else:
-        tg = np.asarray(posterior["transition_group"], dtype=float)
-        matrices = {f" ({label})": (tg[:, g], start_group == g) for g, label in enumerate(data.labels["group"])}
-        per_cohort = tg[:, _cohort_group(data)]
+        per_group = np.asarray(posterior["transition_group"], dtype=float)
+        matrices = {f" ({label})": (per_group[:, g], start_group == g)
+                    for g, label in enumerate(data.labels["group"])}
     by_cohort = cohort_covariates(data) is not None
     if by_cohort:
-        per_cohort = shifted_by_covariates(data, per_cohort, posterior)
+        per_cohort = shifted_by_covariates(data, per_group[:, _cohort_group(data)], posterior)
         # Units of each cohort's start ending in each end stage (draws, starts, A).
         ending = _ending(absorption_shares(per_cohort[:, start_cohort], end), start, end)
     out = {}
     for suffix, (m, mine) in matrices.items():
         b = absorption_shares(m, end)
-        for a, name in enumerate(end_names):
-            for i, source in enumerate(transient_names):
-                out[f"ends in {name} from {source}{suffix}"] = b[:, i, a]
         # Without covariates one matrix moves every cohort: the start mix moves as one.
         ends = ending[:, mine].sum(axis=1) if by_cohort else _ending(b, start[mine].sum(axis=0), end)
         for a, name in enumerate(end_names):
+            for i, source in enumerate(transient_names):
+                out[f"ends in {name} from {source}{suffix}"] = b[:, i, a]
             out[f"ends in {name}, cohorts' start mix{suffix}"] = ends[..., a] / start[mine].sum()
     return out
 

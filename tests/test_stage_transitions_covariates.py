@@ -209,6 +209,30 @@ def test_simulated_effects_are_recovered_from_transition_counts(moved_table):
     assert np.allclose(np.log(draws["odds_ratio"][:, 0, 0]), draws["move_effect"][:, 0, 0] / sd)
 
 
+def test_the_simulator_moves_each_cohort_by_the_chain_the_model_gives_it(moved_table):
+    # The NumPy story (simulator, figure, absorption shares) and the PyMC
+    # model shift the moves' log-odds the same way: each step's expected
+    # destinations are its cohort's matrix row of the step's source stage.
+    from recipes.stage_transitions import _matrices_of
+
+    design = _design(covariates="temp,feed")
+    data = RECIPE.validate(moved_table, design.options)
+    model = design.build(data)
+    rng = np.random.default_rng(4)
+    point = {"move_logit": rng.normal(-1.0, 0.5, 4), "move_effect": rng.normal(0.0, 0.7, (4, 2))}
+    values = [model.rvs_to_values[model[name]] for name in point]
+    # The deterministics as functions of the parameters' values (not fresh random draws).
+    outputs = model.replace_rvs_by_values([model["expected"], model["transition"]])
+    expected, transition = model.compile_fn(outputs, inputs=values, on_unused_input="ignore")(point)
+    per_cohort = _matrices_of(data, {"transition": transition, "move_effect": point["move_effect"]})
+    step = data.extra["step"]
+    story = per_cohort[data.extra["step_cohort"], data["from"][step]]
+    np.testing.assert_allclose(expected, story, atol=1e-8)
+    # Zero effects leave every cohort at the reference unit's chain.
+    unmoved = _matrices_of(data, {"transition": transition, "move_effect": np.zeros((4, 2))})
+    np.testing.assert_allclose(unmoved, np.broadcast_to(transition, unmoved.shape), atol=1e-12)
+
+
 # --- stage counts: recovery through the one-multinomial likelihood --------------------------------
 
 
