@@ -74,13 +74,7 @@ def _outcome_list(text: str) -> tuple[str, ...]:
 
 
 OUTCOMES = Option("outcomes", "the outcome count columns, comma separated (at least two)", parse=_outcome_list)
-COVARIATES = Option(
-    "covariates",
-    "a comma list of table columns (numbers or labels) that shift each outcome's timing scale "
-    "and the outcome shares (default: none)",
-    parse=covariates.parse_names,
-    default=(),
-)
+COVARIATES = covariates.option("each outcome's timing scale and the outcome shares")
 RESOLVE = Option(
     "resolve",
     "all (every unit ends in one of the outcomes) or estimate (a share may stay open for good)",

@@ -50,10 +50,21 @@ source stage (the ``sources`` container) and their destinations (the
 Columns: ``cohort``, ``period`` (whole numbers; consecutive within a cohort
 for stage counts), one count column per stage, optional ``from`` (transition
 counts) and ``group``. Options: ``stages``, ``absorbing``, ``moves``,
-``pooling``, ``centred``.
+``pooling``, ``centred`` and ``covariates``.
+
+Covariates (:mod:`workbench.covariates`). Each covariate column, one value
+per cohort in either layout, shifts the log-odds of each allowed move
+against staying by its own ``move_effect`` (a multinomial logit per source
+stage, McFadden 1974): a unit of a cohort with covariates x leaves stage i
+for j with weight ``exp(move_logit[i>j] + x'move_effect[i>j])`` against 1
+for staying. ``move_logit`` and ``transition`` then describe a unit at the
+numeric covariates' means and the labels' reference levels; ``odds_ratio``
+gives each move's effect per unit of its covariate.
 
 References
 ----------
+McFadden, D. (1974). Conditional logit analysis of qualitative choice
+behavior. In Frontiers in Econometrics, ed. P. Zarembka, 105-142. Academic Press.
 Kemeny, J. G. and Snell, J. L. (1960). Finite Markov Chains. Van Nostrand,
 chapter III (absorbing chains, the fundamental matrix N = (I - Q)^-1 and the
 absorption probabilities B = N R).
@@ -67,7 +78,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from workbench import tables
+from workbench import covariates, tables
 from workbench.cohorts import CENTRED, EPS, relaxation
 from workbench.errors import DataError, OptionError
 from workbench.recipe import (
@@ -133,6 +144,7 @@ MOVES = Option(
     parse=_moves_option,
     default="forward",
 )
+COVARIATES = covariates.option("the log-odds of each allowed move against staying")
 POOLING = Option(
     "pooling",
     "how groups share the transition probabilities: none, partial or complete",
@@ -210,7 +222,8 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     Stage counts: consecutive periods, constant totals, end stages never
     shrink. Transition counts: ``from`` names a stage, one row per cohort,
     period and ``from``, no unit leaves an end stage and none makes a move
-    the design does not allow.
+    the design does not allow. In both, each covariate is one value per
+    cohort (:func:`workbench.covariates.read`, one design row per table row).
     """
     stages, absorbing = list(options["stages"]), list(options["absorbing"])
     unknown = [a for a in absorbing if a not in stages]
@@ -259,7 +272,14 @@ def validate(table: pd.DataFrame, options: dict) -> Dataset:
     data = Dataset(columns, labels=labels, source_rows=[[int(i)] for i in order])
     pooling = choose_pooling(options, len(group_labels))
     spread = start_period.std()
+    reserved = ("cohort", "period", *(["from"] if source is not None else []), *stages, "group")
+    design = covariates.read(table, tuple(options.get("covariates", ())), NAME, reserved)
+    if design is not None:
+        # Every row of a cohort counts the same units: one value per cohort.
+        covariates.constant_within(design, table, cohort, cohort_labels)
+        design = design.take(order)
     data.extra.update(
+        covariates=design,
         layout=layout,
         stages=stages,
         absorbing=end,
@@ -446,7 +466,10 @@ def _matrix_from_logits(data: Dataset, logit):
 
 
 def transition_matrices(data: Dataset, options: dict, prior):
-    """Transition matrix of each group, pooled as ``pooling`` says; adds ``transition_group``."""
+    """Transition matrix of each group, pooled as ``pooling`` says; adds ``transition_group``.
+
+    Returns the matrices (groups, S, S) and their move log-odds (groups, moves).
+    """
     import pymc as pm
     import pytensor.tensor as pt
 
@@ -454,11 +477,13 @@ def transition_matrices(data: Dataset, options: dict, prior):
     n_groups = len(data.labels["group"])
     dims = ("group", "from", "to")
     if pooling == "none":
-        per_group = _matrix_from_logits(data, prior("move_logit", dims=("group", "move")))
+        group_logit = prior("move_logit", dims=("group", "move"))
+        per_group = _matrix_from_logits(data, group_logit)
     else:
         logit = prior("move_logit", dims="move")
         common = pm.Deterministic("transition", _matrix_from_logits(data, logit), dims=("from", "to"))
         if pooling == "complete":
+            group_logit = pt.broadcast_to(logit, (n_groups, logit.shape[0]))
             per_group = pt.broadcast_to(common, (n_groups, *common.shape))
         else:
             spread = prior("transition_sd")  # sd of move log-odds across groups
@@ -468,7 +493,27 @@ def transition_matrices(data: Dataset, options: dict, prior):
                 z = pm.Normal("transition_offset", 0.0, 1.0, dims=("group", "move"))
                 group_logit = logit + spread * z
             per_group = _matrix_from_logits(data, group_logit)
-    return pm.Deterministic("transition_group", per_group, dims=dims)
+    return pm.Deterministic("transition_group", per_group, dims=dims), group_logit
+
+
+def cohort_covariates(data: Dataset) -> covariates.Design | None:
+    """The covariates with one design row per cohort (None without covariates)."""
+    design = data.extra.get("covariates")
+    if design is None:
+        return None
+    _, first = np.unique(data["cohort"], return_index=True)
+    return design.take(first)
+
+
+def _cohort_matrices(data: Dataset, matrices, group_logit, prior):
+    """Each cohort's matrix (C, S, S): its group's, each move's log-odds against staying
+    shifted by the cohort's covariates (``move_effect``, dims (move, covariate))."""
+    design = cohort_covariates(data)
+    cohort_group = _cohort_group(data)
+    if design is None:
+        return matrices[cohort_group]
+    shift = covariates.shifts(design, prior, "move_effect", over="move")
+    return _matrix_from_logits(data, group_logit[cohort_group] + shift)
 
 
 def _with_drift(data: Dataset, matrices, drift):
@@ -482,9 +527,10 @@ def _with_drift(data: Dataset, matrices, drift):
     return m / m.sum(axis=-1, keepdims=True)
 
 
-def _with_dormant(data: Dataset, matrices, dormant, start, previous_age, cohort_of_step):
+def _with_dormant(data: Dataset, visible, dormant, start, previous_age, cohort_of_step):
     """Visible one-step matrices when transient units may fall silent (dormant) for good.
 
+    ``visible`` holds each cohort's matrix (C, S, S).
     A dormant unit stays recorded in the stage where it fell silent. The
     dormant share of each stage is forecast from the cohort's first period by
     the augmented chain; the previous counts are split by that share.
@@ -495,8 +541,6 @@ def _with_dormant(data: Dataset, matrices, dormant, start, previous_age, cohort_
     s = len(end)
     transient = np.flatnonzero(~end)
     t = len(transient)
-    cohort_group = _cohort_group(data)
-    visible = matrices[cohort_group]  # (C, S, S)
     moving = (~end)[None, :, None]  # transient source rows
     active = visible + dormant * moving * (np.eye(s)[None] - visible)
     c = visible.shape[0]
@@ -536,11 +580,13 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     stages = data.extra["stages"]
     coords = {"step": np.arange(data.extra["step"].size), "stage": stages, "from": stages, "to": stages,
               "group": data.labels["group"], "move": move_labels(data), "cohort": data.labels["cohort"]}
+    if data.extra.get("covariates") is not None:
+        coords[covariates.DIM] = list(data.extra["covariates"].effects)
     with pm.Model(coords=coords) as model:
         counts = pm.Data("counts", values["counts"], dims=("step", "stage"))
         moving = pm.Data("sources", values["sources"], dims=("step", "stage"))
-        matrices = transition_matrices(data, options, prior)
-        per_step = matrices[data.extra["step_group"]]
+        per_cohort = _cohort_matrices(data, *transition_matrices(data, options, prior), prior)
+        per_step = per_cohort[data.extra["step_cohort"]]
         if relax == "stay_drift":
             per_step = _with_drift(data, per_step, prior("stay_drift"))
         elif relax == "dormant":
@@ -550,7 +596,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
             start = pt.zeros((len(data.labels["cohort"]), len(data.extra["stages"])))
             start = pt.inc_subtensor(start[cohort_of_step[first]], moving[first])
             start = pt.set_subtensor(start[:, 0], start[:, 0] + pt.eq(start.sum(axis=-1), 0))
-            per_step = _with_dormant(data, matrices, prior("dormant"), start, age, cohort_of_step)
+            per_step = _with_dormant(data, per_cohort, prior("dormant"), start, age, cohort_of_step)
         total = moving.sum(axis=-1, keepdims=True)
         source = moving / pt.maximum(total, 1.0)
         p = (source[:, :, None] * per_step).sum(axis=1)
@@ -574,12 +620,37 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
 
 
 def _matrices_of(data: Dataset, params: dict) -> np.ndarray:
+    """Each cohort's transition matrix (C, S, S) in one draw of the model's variables."""
     n_groups = len(data.labels["group"])
     if "transition_group" in params:
         shape = (n_groups, *data.extra["allowed"].shape)
-        return np.asarray(params["transition_group"], dtype=float).reshape(shape)
-    m = np.asarray(params["transition"], dtype=float)
-    return np.broadcast_to(m, (n_groups, *m.shape))
+        per_group = np.asarray(params["transition_group"], dtype=float).reshape(shape)
+    else:
+        m = np.asarray(params["transition"], dtype=float)
+        per_group = np.broadcast_to(m, (n_groups, *m.shape))
+    return shifted_by_covariates(data, per_group[_cohort_group(data)], params)
+
+
+def shifted_by_covariates(data: Dataset, matrices: np.ndarray, params: dict) -> np.ndarray:
+    """Cohort matrices (..., C, S, S) with each allowed move's log-odds against staying
+    shifted by the cohort's covariates.
+
+    ``params`` may hold ``move_effect``, one draw (moves, covariates) or
+    draws (..., moves, covariates) matching the leading axes of ``matrices``;
+    without it (or without covariates) the matrices come back as they are.
+    """
+    design = cohort_covariates(data)
+    if design is None or "move_effect" not in params:
+        return matrices
+    shift = covariates.linear_by(design, params, "move_effect")  # (..., C, moves)
+    rows, cols = _moves(data)
+    out = np.array(matrices, dtype=float)
+    for i in np.unique(rows):
+        mine = np.flatnonzero(rows == i)
+        # Staying first: the reference of the row's multinomial log-odds.
+        to = np.concatenate([[i], cols[mine]])
+        out[..., i, to] = covariates.shift_shares(out[..., i, to], shift[..., mine], against_open=False)
+    return out
 
 
 def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dict) -> Dataset:
@@ -589,12 +660,15 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     Transition counts: each row's units move from its ``from`` stage (the
     rows' unit counts are kept, as the model conditions on them).
 
-    ``params`` holds ``transition`` (or ``transition_group``) and may carry
-    ``stay_drift``, ``dormant`` and ``overdispersion`` to plant faults: the
-    stay probability scaled by exp(drift * standardised period), a
-    per-period chance that a transient unit falls silent in its stage for
-    good, and per-period move probabilities shared by a cohort's units
-    (Dirichlet with concentration 1 / overdispersion - 1).
+    ``params`` holds ``transition`` (or ``transition_group``), with
+    covariates ``move_effect`` (moves, covariates) on the model's scale (a
+    unit at the numbers' means and the labels' reference levels moves as
+    ``transition`` says), and may carry ``stay_drift``, ``dormant`` and
+    ``overdispersion`` to plant faults: the stay probability scaled by
+    exp(drift * standardised period), a per-period chance that a transient
+    unit falls silent in its stage for good, and per-period move
+    probabilities shared by a cohort's units (Dirichlet with concentration
+    1 / overdispersion - 1).
     """
     matrices = _matrices_of(data, params)
     drift = float(params.get("stay_drift", 0.0))
@@ -648,9 +722,9 @@ def _simulate_rows(rng, data: Dataset, matrices, drift: float, dormant: float, r
 
 
 def _story_matrix(data: Dataset, matrices, u: int, drift: float) -> np.ndarray:
-    """The matrix of step ``u``: its group's, stay probabilities scaled by exp(drift * period)."""
+    """The matrix of step ``u``: its cohort's, stay probabilities scaled by exp(drift * period)."""
     end = data.extra["absorbing"]
-    m = matrices[data.extra["step_group"][u]].copy()
+    m = matrices[data.extra["step_cohort"][u]].copy()
     if drift:
         f = np.exp(drift * data.extra["drift_x"][u])
         m[~end, :] *= np.where(np.eye(len(end), dtype=bool)[~end], f, 1.0)
@@ -678,7 +752,7 @@ def _awake_shares(data: Dataset, matrices, dormant: float, sources: np.ndarray) 
         mine = np.flatnonzero(cohorts == c)
         active = sources[mine[ages[mine] == 0]].sum(axis=0).astype(float)
         silent = np.zeros_like(active)
-        m = matrices[data.extra["step_group"][mine[0]]]
+        m = matrices[c]
         for a in range(int(ages[mine].max()) + 1):
             for u in mine[ages[mine] == a]:
                 total = active[stage_of[u]] + silent[stage_of[u]]
@@ -707,30 +781,47 @@ def absorption_shares(transition: np.ndarray, absorbing: np.ndarray) -> np.ndarr
 
 
 def derived(data: Dataset, options: dict, posterior: dict) -> dict:
-    """Long-run absorption shares from each transient stage and for the cohorts' start mix."""
+    """Long-run absorption shares from each transient stage and for the cohorts' start mix.
+
+    With covariates the shares from each stage are a unit's at the numbers'
+    means and the labels' reference levels; the start mix moves each
+    cohort's units by its own matrix.
+    """
     stages = data.extra["stages"]
     end = data.extra["absorbing"]
     transient_names = [s for s, e in zip(stages, end) if not e]
     end_names = [s for s, e in zip(stages, end) if e]
     cohort, age, states = cohort_states(data)
-    start = states[age == 0]
+    start, start_cohort = states[age == 0].astype(float), cohort[age == 0]
+    start_group = _cohort_group(data)[start_cohort]
     if "transition" in posterior:
-        matrices = {"": (np.asarray(posterior["transition"], dtype=float), start.sum(axis=0))}
+        m = np.asarray(posterior["transition"], dtype=float)
+        matrices = {"": (m, np.ones(len(start), dtype=bool))}
+        per_group = np.broadcast_to(m[:, None], (m.shape[0], len(data.labels["group"]), *m.shape[1:]))
     else:
-        tg = np.asarray(posterior["transition_group"], dtype=float)
-        first_group = _cohort_group(data)[cohort[age == 0]]
-        matrices = {f" ({label})": (tg[:, g], start[first_group == g].sum(axis=0))
+        per_group = np.asarray(posterior["transition_group"], dtype=float)
+        matrices = {f" ({label})": (per_group[:, g], start_group == g)
                     for g, label in enumerate(data.labels["group"])}
+    by_cohort = cohort_covariates(data) is not None
+    if by_cohort:
+        per_cohort = shifted_by_covariates(data, per_group[:, _cohort_group(data)], posterior)
+        # Units of each cohort's start ending in each end stage (draws, starts, A).
+        ending = _ending(absorption_shares(per_cohort[:, start_cohort], end), start, end)
     out = {}
-    for suffix, (m, mix) in matrices.items():
+    for suffix, (m, mine) in matrices.items():
         b = absorption_shares(m, end)
-        mix = mix / mix.sum()
+        # Without covariates one matrix moves every cohort: the start mix moves as one.
+        ends = ending[:, mine].sum(axis=1) if by_cohort else _ending(b, start[mine].sum(axis=0), end)
         for a, name in enumerate(end_names):
             for i, source in enumerate(transient_names):
                 out[f"ends in {name} from {source}{suffix}"] = b[:, i, a]
-            out[f"ends in {name}, cohorts' start mix{suffix}"] = (
-                b[:, :, a] @ mix[~end] + mix[end][a])
+            out[f"ends in {name}, cohorts' start mix{suffix}"] = ends[..., a] / start[mine].sum()
     return out
+
+
+def _ending(b: np.ndarray, start: np.ndarray, end: np.ndarray) -> np.ndarray:
+    """Units ending in each end stage (..., A): ``start`` (..., S) moved by absorption shares ``b`` (..., T, A)."""
+    return np.einsum("...ta,...t->...a", b, start[..., ~end]) + start[..., end]
 
 
 # --- targeted statistics ------------------------------------------------------------------------------
@@ -814,7 +905,9 @@ def figure(data: Dataset, options: dict, posterior: dict, predictive: dict, draw
     ages = np.arange(age.max() + 1)
     tg = np.asarray(posterior["transition_group"], dtype=float)
     pick = np.linspace(0, tg.shape[0] - 1, min(draws, tg.shape[0])).astype(int)
-    tg = tg[pick]
+    # Each cohort's own chain: its group's, shifted by its covariates.
+    per_cohort = shifted_by_covariates(data, tg[pick][:, group_of],
+                                       {k: np.asarray(v)[pick] for k, v in posterior.items() if k == "move_effect"})
     rng = np.random.default_rng(FIGURE_SEED)
     fitted = np.zeros((len(pick), ages.size, len(stages)))
     replicated = np.zeros_like(fitted)
@@ -823,7 +916,7 @@ def figure(data: Dataset, options: dict, posterior: dict, predictive: dict, draw
         rows = np.flatnonzero(cohort == cohort[row])
         seen = set(age[rows].tolist())
         share = np.broadcast_to(n[row] / n[row].sum(), (len(pick), len(stages)))
-        m = tg[:, group_of[cohort[row]]]
+        m = per_cohort[:, cohort[row]]
         moved = np.broadcast_to(np.eye(len(stages)), m.shape)  # chain over a periods, from each stage
         for a in range(age[rows].max() + 1):
             fitted[:, a] += n[row].sum() * share
@@ -939,12 +1032,17 @@ RECIPE = Recipe(
                        "at 'period' (exact likelihood)", required=False),
         Column("group", "optional label: which kind of cohort (one per cohort)", required=False),
     ),
-    options=(STAGES, ABSORBING, MOVES, POOLING, CENTRED),
+    options=(STAGES, ABSORBING, MOVES, POOLING, CENTRED, COVARIATES),
     parameters=(
         # Log-odds against staying, centred at -1.5: a period is usually
         # shorter than a stay in a stage (each move about a fifth as likely
         # as staying), while sd 1.5 still lets a move dominate (common practice).
         Parameter("move_logit", "log-odds of each allowed move against staying", "normal(-1.5,1.5)"),
+        # Per sd of a numeric covariate: 95% of odds ratios between 1/7 and 7,
+        # a strong effect next to move_logit's own spread of 1.5.
+        Parameter("move_effect", "shift of each allowed move's log-odds against staying per sd of a numeric "
+                  "covariate (per level of a label, against its reference level: the first in sorted order)",
+                  "normal(0,1)"),
         Parameter("transition_sd", "sd of move log-odds across groups (partial pooling)",
                   "halfnormal(0.5)"),
         # Relaxation parameters (only present in the expanded models).

@@ -12,11 +12,16 @@ a unit with covariates x has times ``exp(x'b)`` as long as a reference unit)
 and the log-odds of the eventual share (the logistic mixture cure model of
 Farewell 1982). The effects are reported per unit of the covariate (per
 level against the reference for labels) as time ratios and odds ratios.
+In ``stage-transitions`` each effect shifts the log-odds of an allowed move
+against staying in the stage (a multinomial logit per source stage,
+McFadden 1974), reported as odds ratios.
 
 References
 ----------
 Farewell, V. T. (1982). The use of mixture models for the analysis of survival
 data with long-term survivors. Biometrics 38(4), 1041-1046.
+McFadden, D. (1974). Conditional logit analysis of qualitative choice
+behavior. In Frontiers in Econometrics, ed. P. Zarembka, 105-142. Academic Press.
 Kalbfleisch, J. D. and Prentice, R. L. (2002). The Statistical Analysis of
 Failure Time Data, 2nd ed. Wiley.
 """
@@ -38,6 +43,8 @@ from workbench.recipe import Option, Parameter
 NUMERIC_SHARE = 0.5
 # The dimension of the effect parameters.
 DIM = "covariate"
+# Each effect parameter's interpretable form per unit of its covariate.
+RATIOS = {"time_effect": "time_ratio", "share_effect": "odds_ratio", "move_effect": "odds_ratio"}
 
 
 def parse_names(text: str) -> tuple[str, ...]:
@@ -48,13 +55,13 @@ def parse_names(text: str) -> tuple[str, ...]:
     return names
 
 
-COVARIATES = Option(
-    "covariates",
-    "a comma list of table columns (numbers or labels) that shift the timing scale and the "
-    "eventual share (default: none)",
-    parse=parse_names,
-    default=(),
-)
+def option(shifted: str) -> Option:
+    """The ``covariates`` option of a recipe whose covariates shift ``shifted``."""
+    return Option("covariates", f"a comma list of table columns (numbers or labels) that shift {shifted} "
+                                "(default: none)", parse=parse_names, default=())
+
+
+COVARIATES = option("the timing scale and the eventual share")
 
 PARAMETERS = (
     # Per sd of a numeric covariate (per level for labels): 95% of time
@@ -164,15 +171,15 @@ def shifts(design: Design, prior, name: str, over: str | None = None):
     of it: an outcome) the parameter has dims ``(over, covariate)`` and the
     shift is (rows, elements). Also records the effect per unit of each
     covariate on its interpretable scale: ``time_ratio`` (exp of the log
-    timing shift) for ``time_effect``, ``odds_ratio`` for ``share_effect``.
+    timing shift) for ``time_effect``, ``odds_ratio`` for an effect on
+    log-odds (``share_effect``, ``move_effect``).
     """
     import pymc as pm
     import pytensor.tensor as pt
 
     dims = DIM if over is None else (over, DIM)
     effect = prior(name, dims=dims)
-    ratio = {"time_effect": "time_ratio", "share_effect": "odds_ratio"}[name]
-    pm.Deterministic(ratio, pt.exp(effect / design.per_unit), dims=dims)
+    pm.Deterministic(RATIOS[name], pt.exp(effect / design.per_unit), dims=dims)
     return pt.dot(pt.constant(design.matrix), effect.T)
 
 
