@@ -42,7 +42,11 @@ DIM = "covariate"
 
 def parse_names(text: str) -> tuple[str, ...]:
     """``"dose,site"`` -> ``("dose", "site")``; empty text: no covariates."""
-    names = tuple(part.strip() for part in str(text).split(",") if part.strip())
+    if not str(text).strip():
+        return ()
+    names = tuple(part.strip() for part in str(text).split(","))
+    if "" in names:
+        raise ValueError("a column name between every two commas")
     if len(set(names)) != len(names):
         raise ValueError("each column at most once")
     return names
