@@ -292,3 +292,109 @@ def test_a_figure_made_without_pyplot_is_embedded_with_its_ticks_apart():
     ax.plot(np.linspace(-0.01, 0.01, 5), np.arange(5))
     assert plots.to_data_uri(fig).startswith("data:image/png;base64,")
     assert plots.overlapping_tick_labels(fig) == []
+
+
+# --- curves at chosen covariate values --------------------------------------------------------------
+
+# Invented: 300 units with a three-level site and a dose; Weibull timing with
+# scale 1 (relative to the median time) and shape 2, an eventual share of 0.7.
+COVARIATE_CURVE = {"scale": 1.0, "shape": 2.0, "eventual": 0.7}
+
+
+def covariate_inputs(covariates: str, time_effect, share_effect, draws=40):
+    from recipes.timing_curve import RECIPE
+
+    rng = np.random.default_rng(8)
+    n = 300
+    frame = pd.DataFrame({"time": rng.uniform(2.0, 4.0, n), "event": 0, "site": rng.choice(["a", "b", "c"], n),
+                          "dose": np.round(rng.gamma(4.0, 1.5, n), 1)})
+    frame.loc[0, "event"] = 1
+    options = RECIPE.read_options({"covariates": covariates})
+    data = RECIPE.validate(frame, options)
+    truth = {**COVARIATE_CURVE, "time_effect": np.asarray(time_effect, dtype=float),
+             "share_effect": np.asarray(share_effect, dtype=float)}
+    sim = RECIPE.simulate(rng, data, truth, options)
+    data = RECIPE.validate(frame.assign(time=sim["time"], event=sim["code"]), options)
+    e = len(data.extra["covariates"].effects)
+    # Every draw at the truth: the posterior median is the true curve.
+    posterior = {"scale_group": np.full((draws, 1, 1), truth["scale"]), "shape": np.full((draws, 1), truth["shape"]),
+                 "share": np.full((draws, 1), truth["eventual"]),
+                 "time_effect": np.tile(truth["time_effect"], (draws, 1)).reshape(draws, e),
+                 "share_effect": np.tile(truth["share_effect"], (draws, 1)).reshape(draws, e)}
+    return RECIPE, data, options, posterior, frame.assign(time=sim["time"], event=sim["code"])
+
+
+def fitted_curves(fig):
+    return by_gid(fig, "fitted-curve")
+
+
+def test_a_label_covariate_draws_one_fitted_curve_per_level_against_its_units():
+    recipe, data, options, posterior, _ = covariate_inputs("site", [0.5, -0.5], [0.0, 0.0])
+    fig, caption = recipe.figure(data, options, posterior, {})
+    lines = fitted_curves(fig)
+    assert [line.get_label() for line in lines] == ["site a", "site b", "site c"]
+    assert "site at each level: a (reference), b, c" in caption
+    # Site b's times are exp(0.5) as long: its curve lies below a's, c's above.
+    at = np.searchsorted(lines[0].get_xdata(), data.extra["age_ref"])
+    a, b, c = (line.get_ydata()[at] for line in lines)
+    assert b < a < c
+    # One Kaplan-Meier estimate per level, from that level's units.
+    assert len(by_gid(fig, "observed-estimate")) == 3 and "Kaplan-Meier" in caption
+
+
+def test_a_numeric_covariate_draws_its_quartiles_on_its_own_scale():
+    from workbench.wording import number
+
+    recipe, data, options, posterior, frame = covariate_inputs("dose", [-0.4], [0.6])
+    fig, caption = recipe.figure(data, options, posterior, {})
+    lines = fitted_curves(fig)
+    quartiles = np.quantile(frame["dose"], [0.25, 0.5, 0.75])
+    assert len(lines) == 3
+    assert (f"dose at its lower quartile {number(quartiles[0])}, median {number(quartiles[1])}, "
+            f"upper quartile {number(quartiles[2])}") in caption
+    assert lines[2].get_label() == f"dose {number(quartiles[2])} (upper quartile)"
+    # Reference: scipy.stats.weibull_min at the timing scale exp(effect * z)
+    # and the eventual share expit(logit(0.7) + effect * z), z the
+    # standardised upper quartile.
+    z = (quartiles[2] - frame["dose"].mean()) / frame["dose"].std(ddof=0)
+    share = 1.0 / (1.0 + np.exp(-(np.log(0.7 / 0.3) + 0.6 * z)))
+    t = lines[2].get_xdata() / data.extra["age_ref"]
+    expected = share * stats.weibull_min(2.0, scale=np.exp(-0.4 * z)).cdf(t)
+    np.testing.assert_allclose(lines[2].get_ydata(), expected, atol=1e-9)
+
+
+def test_more_than_six_combinations_vary_only_the_covariate_that_moves_the_curve_most():
+    # Site (three levels) by dose (three quartiles): nine curves would not read;
+    # the dose moves the curve far more than the site does.
+    recipe, data, options, posterior, _ = covariate_inputs("site,dose", [0.02, -0.02, -0.8], [0.0, 0.0, 0.0])
+    fig, caption = recipe.figure(data, options, posterior, {})
+    assert [line.get_label().split(" (")[0].split(" ")[0] for line in fitted_curves(fig)] == ["dose"] * 3
+    assert "only dose varies" in caption and "site at its reference level a" in caption
+
+
+def test_cohort_counts_with_a_label_covariate_give_each_row_its_interval_in_its_level_colour():
+    from recipes.timing_curve import RECIPE
+    from workbench import cohorts
+
+    options = RECIPE.read_options({"covariates": "soil"})
+    rows = [{"cohort": f"c{c}", "age": a, "exposed": 150, "events": 0, "soil": ("clay", "loam")[c % 2]}
+            for c in range(6) for a in (2, 4, 8, 16)]
+    frame = pd.DataFrame(rows)
+    base = RECIPE.validate(frame, options)
+    truth = {"scale": 0.8, "shape": 1.8, "eventual": 0.6, "time_effect": np.array([0.7]),
+             "share_effect": np.array([0.0])}
+    rng = np.random.default_rng(2)
+    data = RECIPE.validate(frame.assign(events=RECIPE.simulate(rng, base, truth, options)["events"]), options)
+    replicated = np.stack([cohorts.observed(RECIPE.simulate(rng, data, truth, options))["counts"]
+                           for _ in range(200)])
+    posterior = {"scale_group": np.full((200, 1, 1), 0.8), "shape": np.full((200, 1), 1.8),
+                 "share": np.full((200, 1), 0.6), "time_effect": np.full((200, 1), 0.7),
+                 "share_effect": np.zeros((200, 1))}
+    fig, caption = RECIPE.figure(data, options, posterior, {"y": replicated})
+    lines = fitted_curves(fig)
+    assert [line.get_label() for line in lines] == ["soil clay", "soil loam"]
+    whiskers = by_gid(fig, "predictive-interval")
+    assert [w.get_colors()[0][:3].round(3).tolist() for w in whiskers] == [
+        np.round(__import__("matplotlib").colors.to_rgb(line.get_color()), 3).tolist() for line in lines]
+    assert len(whisker_ends(fig)) == data.rows
+    assert "coloured by the value it is nearest" in caption

@@ -653,10 +653,19 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     replicated cell counts ``y``, and marked where it falls outside; with one
     row per unit, steps are the Aalen-Johansen estimate from the group's
     units (Kaplan-Meier for one outcome).
+
+    With covariates the curves are drawn at chosen covariate values instead
+    (:func:`workbench.covariate_curves.figure`), and the figure comes with
+    its caption: ``(figure, caption)``.
     """
     import matplotlib.pyplot as plt
 
     from workbench.report import plots
+
+    if data.extra.get("covariates") is not None:
+        from workbench import covariate_curves
+
+        return covariate_curves.figure(data, family, posterior, ylabel, draws, predictive)
 
     outcomes = data.extra["outcomes"]
     k = len(outcomes)

@@ -36,6 +36,7 @@ smoothed importance sampling. JMLR 25(72).
 
 from __future__ import annotations
 
+import hashlib
 import html
 import re
 import warnings
@@ -554,8 +555,16 @@ def pointwise_figure(doc: dict):
 
 
 def slug(label: str) -> str:
-    """A file-system-safe folder name for a design label."""
-    return re.sub(r"[^A-Za-z0-9_.=-]+", "_", label)[:80].strip("_") or "design"
+    """A file-system-safe folder name for a design label, distinct for distinct labels.
+
+    A label that had to change (a ``:`` or ``,`` replaced, a long one cut)
+    keeps a short hash of itself: ``covariates=a,b`` and ``covariates=a_b``
+    would otherwise share a folder.
+    """
+    safe = re.sub(r"[^A-Za-z0-9_.=-]+", "_", label)[:80].strip("_") or "design"
+    if safe == label:
+        return safe
+    return f"{safe}-{hashlib.sha1(label.encode('utf-8')).hexdigest()[:8]}"
 
 
 def write_compare(result: CompareResult, command: str) -> dict[str, Path]:

@@ -28,7 +28,7 @@ Failure Time Data, 2nd ed. Wiley.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -49,7 +49,11 @@ RATIOS = {"time_effect": "time_ratio", "share_effect": "odds_ratio", "move_effec
 
 def parse_names(text: str) -> tuple[str, ...]:
     """``"dose,site"`` -> ``("dose", "site")``; empty text: no covariates."""
-    names = tuple(part.strip() for part in str(text).split(",") if part.strip())
+    if not str(text).strip():
+        return ()
+    names = tuple(part.strip() for part in str(text).split(","))
+    if "" in names:
+        raise ValueError("a column name between every two commas")
     if len(set(names)) != len(names):
         raise ValueError("each column at most once")
     return names
@@ -81,7 +85,8 @@ class Design:
     ``matrix`` has one row per dataset row and one column per effect
     (standardised numbers, 0/1 indicators); ``per_unit`` divides an effect
     on that scale to give it per unit of the covariate (the sd for numbers,
-    1 for labels); ``effects`` names the columns (``dose``, ``site=north``).
+    1 for labels); ``effects`` names the columns (``dose``, ``site=north``);
+    ``spans`` gives each covariate's first and past-last matrix column.
     """
 
     names: tuple[str, ...]
@@ -90,10 +95,42 @@ class Design:
     per_unit: np.ndarray
     mean: np.ndarray
     references: dict
+    spans: dict = field(default_factory=dict)
 
     def take(self, order: np.ndarray) -> "Design":
         return Design(self.names, self.effects, self.matrix[order], self.per_unit, self.mean,
-                      self.references)
+                      self.references, self.spans)
+
+    def is_label(self, name: str) -> bool:
+        return name in self.references
+
+    def levels(self, name: str) -> list[str]:
+        """A label covariate's levels, the reference first."""
+        start, stop = self.spans[name]
+        return [self.references[name]] + [e[len(name) + 1:] for e in self.effects[start:stop]]
+
+    def values(self, name: str) -> np.ndarray:
+        """Each row's value of a covariate on its own scale: a number, or a label's level."""
+        start, stop = self.spans[name]
+        block = self.matrix[:, start:stop]
+        if not self.is_label(name):
+            return block[:, 0] * self.per_unit[start] + self.mean[start]
+        codes = np.where(block.any(axis=1), block.argmax(axis=1) + 1, 0)
+        return np.asarray(self.levels(name), dtype=object)[codes]
+
+    def row(self, values: dict) -> np.ndarray:
+        """One design-matrix row (standardised, indicators) for covariate values on their
+        own scale; a covariate not in ``values`` sits at its mean or reference level."""
+        x = np.zeros(len(self.effects))
+        for name, value in values.items():
+            start, stop = self.spans[name]
+            if self.is_label(name):
+                level = self.levels(name).index(value)
+                if level:
+                    x[start + level - 1] = 1.0
+            else:
+                x[start] = (float(value) - self.mean[start]) / self.per_unit[start]
+        return x
 
 
 def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tuple[str, ...]) -> Design | None:
@@ -110,8 +147,9 @@ def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tup
                             f"({', '.join(reserved)}); found {name!r}")
         if name not in present:
             tables.require_columns(table, [name], recipe)
-    blocks, effects, per_unit, mean, references = [], [], [], [], {}
+    blocks, effects, per_unit, mean, references, spans = [], [], [], [], {}, {}
     for name in names:
+        start = len(effects)
         if _is_numeric(table[name]):
             values = tables.numeric_column(table, name)
             sd = float(values.std())
@@ -122,6 +160,7 @@ def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tup
             effects.append(name)
             per_unit.append(sd)
             mean.append(float(values.mean()))
+            spans[name] = (start, len(effects))
             continue
         codes, seen = tables.label_column(table, name)
         levels = sorted(seen)
@@ -135,8 +174,9 @@ def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tup
         effects.extend(f"{name}={level}" for level in levels[1:])
         per_unit.extend([1.0] * (len(levels) - 1))
         mean.extend([0.0] * (len(levels) - 1))
+        spans[name] = (start, len(effects))
     return Design(tuple(names), tuple(effects), np.hstack(blocks), np.asarray(per_unit),
-                  np.asarray(mean), references)
+                  np.asarray(mean), references, spans)
 
 
 def _is_numeric(column: pd.Series) -> bool:

@@ -144,15 +144,24 @@ def parse_design(text: str) -> DesignSpec:
     for piece in rest:
         key, eq, value = piece.partition("=")
         if eq and key.strip() and "~" not in key:
+            _once(spec.options, key.strip(), text, "option", f"{key.strip()}=a,b")
             spec.options[key.strip()] = value.strip()
             continue
         key, tilde, value = piece.partition("~")
         if tilde and key.strip() and value.strip():
+            _once(spec.priors, key.strip(), text, "prior", None)
             spec.priors[key.strip()] = value.strip()
             continue
         raise OptionError(f"design {text!r}: expected KEY=VALUE or PARAM~DIST(ARGS) after "
                           f"'{target}'; found {piece!r}")
     return spec
+
+
+def _once(given: dict, key: str, text: str, what: str, list_form: str | None) -> None:
+    """A design sets each option and prior once; a second value would silently win."""
+    if key in given:
+        hint = f" (a list value takes commas: {list_form})" if list_form else ""
+        raise OptionError(f"design {text!r}: expected each {what} once; found '{key}' twice{hint}")
 
 
 # --- plan files ------------------------------------------------------------------------------

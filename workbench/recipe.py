@@ -208,7 +208,8 @@ class Recipe:
     figure(data, options, posterior, predictive) -> matplotlib Figure, optional
         The recipe's own picture of fitted versus observed; ``posterior`` and
         ``predictive`` map variable names to draws flattened over
-        (chain, draw) into a leading axis.
+        (chain, draw) into a leading axis. It may return ``(figure,
+        caption)`` when the caption depends on the data (the values drawn).
     derived(data, options, posterior) -> {name: array of S draws}, optional
         Quantities the report summarises with their uncertainty (shares at
         maturity, long-run absorption shares, ...).

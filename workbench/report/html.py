@@ -121,6 +121,10 @@ def _free_names(fit) -> list[str]:
     return [n for n in names if n in post.data_vars and post[n].ndim == 2]
 
 
+FIT_CAPTION = ("Observed data against the fitted model: each point with the 90% interval of "
+               "its replicated values, a point outside it marked ◆.")
+
+
 def figures(run) -> dict[str, dict]:
     """Every figure of the report by name: {name: {"uri", "caption"}}."""
     out: dict[str, dict] = {}
@@ -130,10 +134,10 @@ def figures(run) -> dict[str, dict]:
     predictive = fit.draws(group="posterior_predictive")
     prior_predictive = fit.draws(group="prior_predictive") if "prior_predictive" in fit.idata.children else {}
     if recipe is not None and recipe.figure is not None:
-        fig = recipe.figure(run.data, run.design.options, posterior, predictive)
-        out["fit"] = {"uri": plots.to_data_uri(fig),
-                      "caption": "Observed data against the fitted model: each point with the 90% interval of "
-                              "its replicated values, a point outside it marked ◆."}
+        drawn = recipe.figure(run.data, run.design.options, posterior, predictive)
+        # A recipe's figure may bring its own caption: (figure, caption).
+        fig, caption = drawn if isinstance(drawn, tuple) else (drawn, FIT_CAPTION)
+        out["fit"] = {"uri": plots.to_data_uri(fig), "caption": caption}
     else:
         covariate = getattr(recipe, "covariate", None) if recipe else None
         observed = fit.idata["observed_data"].to_dataset()
