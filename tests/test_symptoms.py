@@ -386,3 +386,39 @@ def test_a_relaxation_the_data_do_not_need_explains_nothing():
     judged = by_key(findings)
     assert judged["time_homogeneity"].verdict == "broken"
     assert not judged["time_homogeneity"].symptom_of
+
+
+def test_of_two_causes_that_explain_each_other_the_one_that_explains_every_alarm_wins():
+    # Shape of a randomized threshold-geometry layout (12 distances, planted
+    # extra failure 0.027): the spread slope gains by exact refits, the extra
+    # failure is judged by its parameter alone, and each makes the other's
+    # statistic ordinary; only the extra failure also explains the dispersion
+    # alarm. One cause for every alarm beats one that needs a second beside it.
+    declared = [("shared_spread", "One spread at every distance.", "Let the spread grow."),
+                ("angle_only", "Only the aiming error fails an attempt.", "Add an extra failure."),
+                ("independent_attempts", "Attempts are independent.", "Add a row effect.")]
+    extra = relaxation("angle_only", "extra_failure", 0.0)
+    extra.numbers.update(elpd_method="parameter", odds_ratio=60.0, share_beyond=0.998)
+    catch_all = relaxation("independent_attempts", "overdispersion", 0.0)
+    catch_all.numbers.update(elpd_method="parameter", odds_ratio=4.0, share_beyond=0.85, absorbs_misfit=True)
+
+    def stat(key, name, p):
+        return Finding(key, "ppc", f"ppc:{name}", 1.0, p, name, {})
+
+    def under(key, name, model, of, p):
+        return Finding(key, "ppc_under_relaxation", f"ppc:{name}|{model}", 1.0, p, "under", {"relaxation_of": of})
+
+    findings = [relaxation("shared_spread", "spread_slope", 21.0), extra, catch_all,
+                stat("shared_spread", "residual_trend", 0.0),
+                under("shared_spread", "residual_trend", "extra_failure", "angle_only", 0.75),
+                under("shared_spread", "residual_trend", "overdispersion", "independent_attempts", 0.0),
+                stat("angle_only", "nearest_shortfall", 0.0),
+                under("angle_only", "nearest_shortfall", "spread_slope", "shared_spread", 0.46),
+                under("angle_only", "nearest_shortfall", "overdispersion", "independent_attempts", 0.0075),
+                stat("independent_attempts", "dispersion", 0.0),
+                under("independent_attempts", "dispersion", "spread_slope", "shared_spread", 0.0005),
+                under("independent_attempts", "dispersion", "extra_failure", "angle_only", 0.72)]
+    judged = {v.key: v for v in verdicts.decide(declared, findings)}
+    assert judged["angle_only"].verdict == "broken" and not judged["angle_only"].symptom_of
+    assert judged["shared_spread"].symptom_of == "angle_only"
+    assert judged["independent_attempts"].symptom_of == "angle_only"

@@ -150,8 +150,8 @@ def _absorbs_misfit(verdict: Verdict) -> bool:
     return any(f.numbers.get("absorbs_misfit") for f, _ in verdict.evidence if f.kind == "relaxation")
 
 
-def _cause_rank(verdict: Verdict) -> tuple[bool, bool, float]:
-    """Order of candidate causes: structural relaxations before the catch-all, then by gain.
+def _cause_rank(verdict: Verdict, reach: dict[str, int] | None = None) -> tuple[bool, int, bool, float]:
+    """Order of candidate causes: structural relaxations before the catch-all, then by reach, then by gain.
 
     A relaxation that adds extra variation (beta-binomial, Dirichlet-multinomial)
     absorbs any structural misfit once counts are large, so it gains from a
@@ -162,9 +162,22 @@ def _cause_rank(verdict: Verdict) -> tuple[bool, bool, float]:
     only when its alarm remains under the best structural relaxation. A
     relaxation judged by its parameter alone (no trustworthy gain) ranks
     after those with a gain of its own kind.
+
+    ``reach`` counts, per candidate, the other alarms raised by a statistic
+    that its relaxed model makes ordinary. Of two causes that explain each
+    other, the one that also accounts for more of the remaining alarms is
+    the simpler account of the data and ranks first, whatever their gains
+    (a relaxation that needs a second cause beside it explains less).
     """
     gain = _relaxation_gain(verdict)
-    return (not _absorbs_misfit(verdict), gain is not None, gain or 0.0)
+    return (not _absorbs_misfit(verdict), (reach or {}).get(verdict.key, 0), gain is not None, gain or 0.0)
+
+
+def _reach(verdicts: list[Verdict], candidates: list[Verdict]) -> dict[str, int]:
+    """Per candidate cause, how many other statistic-raised alarms its relaxed model explains."""
+    alarms = [v for v in verdicts if v.verdict == BROKEN and v.key not in (COMPUTATION, PRIORS)
+              and _statistic_alarmed(v)]
+    return {c.key: sum(v is not c and _explains(c, v) for v in alarms) for c in candidates}
 
 
 def _relaxed(verdict: Verdict) -> bool:
@@ -229,7 +242,7 @@ def _statistic_alarmed(verdict: Verdict) -> bool:
     return any(j.level > 0 for f, j in verdict.evidence if f.kind == "ppc")
 
 
-def _is_symptom(verdict: Verdict, cause: Verdict) -> bool:
+def _is_symptom(verdict: Verdict, cause: Verdict, reach: dict[str, int] | None = None) -> bool:
     """Whether ``cause``'s relaxation accounts for ``verdict``'s alarm.
 
     The cause's relaxed model must make the verdict's statistic ordinary. An
@@ -238,16 +251,18 @@ def _is_symptom(verdict: Verdict, cause: Verdict) -> bool:
     the better-ranked relaxation is the cause). An alarm raised by a
     relaxation alone (its statistic was ordinary to begin with, so the
     re-scored statistic says nothing) is a symptom only of a cause that
-    outranks it.
+    outranks it. ``reach`` (see :func:`_cause_rank`) settles mutual
+    explanations of two alarmed statistics; a relaxation-alone alarm
+    explains no statistic of its own, so there the gains decide.
     """
     if not _explains(cause, verdict):
         return False
     if not _relaxed(verdict):
         return True
-    outranks = _cause_rank(verdict) > _cause_rank(cause)
     if _statistic_alarmed(verdict):
+        outranks = _cause_rank(verdict, reach) > _cause_rank(cause, reach)
         return not (outranks and _explains(verdict, cause))
-    return not outranks
+    return not _cause_rank(verdict) > _cause_rank(cause)
 
 
 @settle
@@ -256,7 +271,8 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
 
     Candidate causes are the broken assumptions with a relaxed fit (judged by
     its gain or by its parameter alone), ranked by :func:`_cause_rank`
-    (structural before the catch-all, then by LOO gain). A broken assumption
+    (structural before the catch-all, then by how many other alarms each
+    explains, then by LOO gain). A broken assumption
     is a symptom of a candidate when that candidate's relaxed model makes its
     targeted statistic look ordinary
     (:func:`_is_symptom`); a candidate that is itself a symptom of another
@@ -268,23 +284,24 @@ def symptoms_of_another_failure(verdicts: list[Verdict]) -> None:
     whose only conflict is a posterior beyond its prior draws that the
     cause's relaxed model removes.
     """
-    relaxed = sorted((v for v in verdicts if v.verdict == BROKEN and _relaxed(v)),
-                     key=_cause_rank, reverse=True)
-    if not relaxed:
+    candidates = [v for v in verdicts if v.verdict == BROKEN and _relaxed(v)]
+    if not candidates:
         return
+    reach = _reach(verdicts, candidates)
+    relaxed = sorted(candidates, key=lambda v: _cause_rank(v, reach), reverse=True)
     # A candidate explained by a better-placed standing candidate is no cause.
     causes: list[Verdict] = []
     for v in relaxed:
-        if not any(_is_symptom(v, c) for c in causes):
+        if not any(_is_symptom(v, c, reach) for c in causes):
             causes.append(v)
     # Late candidates may explain earlier ones (a structural cause of lower gain
     # accounts for a catch-all's alarm but not the other way round): drop those.
-    causes = [c for c in causes if not any(_is_symptom(c, other) for other in causes if other is not c)] \
-        or causes[:1]
+    causes = [c for c in causes
+              if not any(_is_symptom(c, other, reach) for other in causes if other is not c)] or causes[:1]
     for v in verdicts:
         if v.verdict != BROKEN or v in causes or v.key in (COMPUTATION, PRIORS):
             continue
-        cause = next((c for c in causes if _is_symptom(v, c)), None)
+        cause = next((c for c in causes if _is_symptom(v, c, reach)), None)
         if cause is not None:
             _demote(v, cause, f"once that assumption is relaxed this one's statistic looks "
                               f"ordinary ({p_equals(_p_under(v, cause))})")
