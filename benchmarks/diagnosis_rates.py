@@ -153,7 +153,7 @@ def run_one(reg, name: str, variant: str, scenario: str, target: str, seed: int,
         record["failure"] = f"{type(err).__name__}: {err}"
         return record
     record["seconds"] = time.perf_counter() - start
-    record["declared"] = [(a.key, a.statement, a.advice) for a in design.assumptions]
+    record["declared"] = [(a.key, a.statement, a.advice_for(design.options)) for a in design.assumptions]
     record["uninformed"] = {a.key: a.uninformed(data) for a in design.assumptions if a.uninformed(data)}
     record["findings"] = [f for f in run.findings]
     record["verdicts"] = {v.key: v.verdict for v in run.verdicts}
@@ -179,7 +179,10 @@ def rejudge(record: dict) -> dict:
     for f in record["findings"]:
         if f.kind == "relaxation" and "absorbs_misfit" not in f.numbers:
             f.numbers["absorbs_misfit"] = flags.get(f.numbers["parameter"], False)
-    judged = verdicts.decide(record["declared"], record["findings"], record["uninformed"])
+    # Advice that depends on the design was once stored as its function.
+    declared = [(key, statement, advice(record["options"]) if callable(advice) else advice)
+                for key, statement, advice in record["declared"]]
+    judged = verdicts.decide(declared, record["findings"], record["uninformed"])
     return {v.key: v.verdict for v in judged}
 
 
