@@ -240,7 +240,8 @@ def test_calibration_with_simulate_ranks_the_storys_own_true_values(non_centred)
     assert calibration["simulator"] == "recipe" and calibration["checks"] == "model code"
     assert calibration["completed"] + calibration["failed"] == int(SBC)
     assert calibration["completed"] > 0
-    assert {"mu", "tau", "z[0]", "log_likelihood"} <= set(calibration["parameters"])
+    # Elements are named by the model's coordinates (the first school is A).
+    assert {"mu", "tau", "z[A]", "log_likelihood"} <= set(calibration["parameters"])
 
 
 def test_calibration_without_simulate_says_it_checks_the_sampler(throwing):
