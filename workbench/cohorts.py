@@ -630,6 +630,21 @@ def cell_dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     return pearson_dispersion(y[:, mask], (n * p)[:, mask], (n * p * (1 - p))[:, mask])
 
 
+def curve_draws(posterior: dict, groups: int, k: int, draws: int):
+    """At most ``draws`` evenly spaced posterior draws of the curves' parameters.
+
+    Returns ``(pick, scale, shape, share, power)``: the indices of the draws
+    kept, the timing scale and shape per group and outcome (S, groups, K),
+    the shares (S, K) and the curve power (S,).
+    """
+    scale = np.asarray(posterior["scale_group"], dtype=float)
+    s = scale.shape[0]
+    pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
+    return (pick, scale.reshape(s, groups, k)[pick], group_shapes(posterior, groups, k)[pick],
+            np.asarray(posterior["share"], dtype=float).reshape(s, k)[pick],
+            np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float).reshape(s))[pick])
+
+
 def group_shapes(posterior: dict, groups: int, k: int) -> np.ndarray:
     """Posterior draws of the curve shape per group and outcome, (S, groups, K)."""
     if "shape_group" in posterior:
@@ -671,13 +686,7 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     k = len(outcomes)
     groups = data.labels["group"][:4]
     fig, axes = plt.subplots(1, len(groups), figsize=(4.2 * len(groups) + 2.6, 3.6), squeeze=False)
-    scale = np.asarray(posterior["scale_group"], dtype=float)
-    s = scale.shape[0]
-    pick = np.linspace(0, s - 1, min(draws, s)).astype(int)
-    scale = scale.reshape(s, len(data.labels["group"]), k)[pick]
-    shape = group_shapes(posterior, len(data.labels["group"]), k)[pick]
-    share = np.asarray(posterior["share"], dtype=float).reshape(s, -1)[pick]
-    power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float))[pick]
+    _, scale, shape, share, power = curve_draws(posterior, len(data.labels["group"]), k, draws)
     grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
     rel = grid / data.extra["age_ref"]
     unit = units.is_units(data)

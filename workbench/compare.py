@@ -292,11 +292,11 @@ def kfold_elpd(held, fit, name: str):
     """
     import xarray as xr
     from arviz_stats.utils import ELPDDataLOOKFold
-    from scipy.special import logsumexp
+
+    from workbench.kfold import log_mean_density
 
     ll = np.asarray(fit.idata["log_likelihood"][name].values, dtype=float)
-    ll = ll.reshape(ll.shape[0] * ll.shape[1], -1)
-    lpd = logsumexp(ll, axis=0) - np.log(ll.shape[0])
+    lpd = log_mean_density(ll.reshape(ll.shape[0] * ll.shape[1], -1))
     pointwise = np.asarray(held.pointwise, dtype=float)
     n = pointwise.size
     return ELPDDataLOOKFold(

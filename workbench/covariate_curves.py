@@ -78,7 +78,6 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     outcomes = data.extra["outcomes"]
     k, n_groups = len(outcomes), len(data.labels["group"])
     groups = data.labels["group"][:4]
-    pick = _thinned(posterior, draws)
     grid = np.linspace(0.0, data["age"].max() * 1.05, 120)
     rel = grid / data.extra["age_ref"]
     chosen = {name: _chosen_values(design, data, name) for name in design.names}
@@ -86,13 +85,13 @@ def figure(data: Dataset, family: str, posterior: dict, ylabel: str, draws: int 
     if combinations <= MAX_CURVES:
         varied, held = list(design.names), []
     else:
-        sizes = {name: _spread(_cumulative(design, posterior, pick, family, rel, n_groups, k,
+        sizes = {name: _spread(_cumulative(design, posterior, draws, family, rel, n_groups, k,
                                            [s.values for s in _settings(design, data, chosen, [name])]))
                  for name in design.names}
         varied = [max(sizes, key=sizes.get)]
         held = [n for n in design.names if n not in varied]
     settings = _settings(design, data, chosen, varied)
-    fitted = _cumulative(design, posterior, pick, family, rel, n_groups, k, [s.values for s in settings])
+    fitted = _cumulative(design, posterior, draws, family, rel, n_groups, k, [s.values for s in settings])
     lo, mid, hi = np.percentile(fitted, BAND, axis=1)  # (settings, T, G, K)
 
     unit = units.is_units(data)
@@ -183,11 +182,6 @@ def caption(design, chosen: dict, varied: list[str], held: list[str], unit: bool
 # --- the settings and their curves -------------------------------------------------------------
 
 
-def _thinned(posterior: dict, draws: int) -> np.ndarray:
-    s = np.asarray(posterior["scale_group"]).shape[0]
-    return np.linspace(0, s - 1, min(draws, s)).astype(int)
-
-
 def _per_design_row(data: Dataset) -> np.ndarray:
     """The rows that stand for the table's units: every unit, or one row per cohort of counts."""
     if units.is_units(data):
@@ -241,7 +235,7 @@ def _settings(design, data: Dataset, chosen: dict, varied: list[str]) -> list[Se
     return out
 
 
-def _cumulative(design, posterior: dict, pick: np.ndarray, family: str, rel: np.ndarray, groups: int,
+def _cumulative(design, posterior: dict, draws: int, family: str, rel: np.ndarray, groups: int,
                 k: int, values: list[dict]) -> np.ndarray:
     """Posterior cumulative share of each outcome at each setting, (settings, S, T, G, K).
 
@@ -249,14 +243,10 @@ def _cumulative(design, posterior: dict, pick: np.ndarray, family: str, rel: np.
     shares by ``x'share_effect`` on their log-odds scale
     (:func:`workbench.covariates.shift_shares`) for each setting's design row x.
     """
-    from workbench.cohorts import group_shapes
+    from workbench.cohorts import curve_draws
 
-    scale = np.asarray(posterior["scale_group"], dtype=float)
-    s = scale.shape[0]
-    scale = scale.reshape(s, groups, k)[pick]
-    shape = group_shapes(posterior, groups, k)[pick]
-    share = np.asarray(posterior["share"], dtype=float).reshape(s, k)[pick]
-    power = np.exp(np.asarray(posterior.get("curve_power", np.zeros(s)), dtype=float).reshape(s))[pick]
+    pick, scale, shape, share, power = curve_draws(posterior, groups, k, draws)
+    s = np.asarray(posterior["scale_group"]).shape[0]
     effects = len(design.effects)
     time_effect = np.asarray(posterior.get("time_effect", np.zeros((s, effects))), dtype=float)
     time_effect = time_effect.reshape(s, -1, effects)[pick]

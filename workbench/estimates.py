@@ -118,8 +118,8 @@ def _label(name: str, var: xr.DataArray, at: dict[str, int]) -> str:
 def element_labels(var: xr.DataArray) -> list[str]:
     """The label of every element of a posterior variable, in row-major order."""
     dims = [d for d in var.dims if d not in SAMPLE_DIMS]
-    return [_label(var.name, var, dict(zip(dims, index)))
-            for index in itertools.product(*(range(var.sizes[d]) for d in dims))]
+    coords = {d: var[d].values for d in dims if d in var.coords}
+    return labels_by_coords(var.name, dims, coords, tuple(var.sizes[d] for d in dims))
 
 
 def labels_by_coords(name: str, dims, coords, shape: tuple[int, ...]) -> list[str]:

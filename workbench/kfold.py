@@ -129,12 +129,17 @@ class KFold:
         return float(self.pointwise.sum())
 
 
+def log_mean_density(ll: np.ndarray) -> np.ndarray:
+    """Log of the mean density over draws per unit, from log-likelihood draws (S, units)."""
+    from scipy.special import logsumexp
+
+    return logsumexp(ll, axis=0) - np.log(ll.shape[0])
+
+
 def held_out_elpd(design, data, relaxation, name: str, folds: np.ndarray, seed: int,
                   settings: engine.Settings, say: Callable[[str], None] = lambda _: None) -> KFold:
     """Refit one model once per fold (compiled once) and score the units it left out."""
     from dataclasses import replace
-
-    from scipy.special import logsumexp
 
     settings = replace(settings, chains=min(settings.chains, FOLD_CHAINS))
     model = fold_model(design, data, relaxation, name)
@@ -151,7 +156,7 @@ def held_out_elpd(design, data, relaxation, name: str, folds: np.ndarray, seed: 
                          observed={HELD_OUT: out.reshape(shape)}, predictive=False, prior=False)
         ll = fit.idata["log_likelihood"][name].values
         ll = ll.reshape(ll.shape[0] * ll.shape[1], -1)[:, folds == i]
-        pointwise[folds == i] = logsumexp(ll, axis=0) - np.log(ll.shape[0])
+        pointwise[folds == i] = log_mean_density(ll)
     return KFold(pointwise, k, np.asarray(folds))
 
 

@@ -489,20 +489,18 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
     return np.column_stack([np.where(seen, times, follow), np.where(seen, outcome + 1, 0)]).astype(float)
 
 
-def simulate(rng: np.random.Generator, data: Dataset, family: str, scales: np.ndarray, shape, share,
+def simulate(rng: np.random.Generator, data: Dataset, family: str, scales: np.ndarray, shapes, share,
              power: float = 1.0, log_shift=0.0) -> Dataset:
     """New outcomes for the units of ``data`` (same entries and censoring times).
 
-    ``scales`` is the timing scale per cohort and outcome (cohorts, K), in
-    the model's relative time; ``shape`` is one per outcome (K,) or per cohort
-    and outcome (cohorts, K) (``shape_by_group``); ``log_shift`` (units,)
+    ``scales`` and ``shapes`` are the timing scale, in the model's relative
+    time, and the curve shape per cohort and outcome (cohorts, K); ``log_shift`` (units,)
     shifts each unit's log scale, (units, K) each outcome's, and ``share``
     may be one per unit and outcome (covariates).
     """
     shift = np.asarray(log_shift, dtype=float)
     scale = scales[data["cohort"]] * data.extra["age_ref"] * np.exp(shift[:, None] if shift.ndim == 1 else shift)
-    shape = np.asarray(shape, dtype=float)
-    shape = shape[data["cohort"]] if shape.ndim == 2 else shape
+    shape = np.asarray(shapes, dtype=float)[data["cohort"]]
     drawn = draw_units(rng, family, data["entry"], data["follow"], scale, shape, share, power)
     return data.replace(time=drawn[:, 0], code=drawn[:, 1].astype(np.int64), age=drawn[:, 0])
 
@@ -556,7 +554,7 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
     Returns the curve of each unit (n,), and per draw the scale (S, L, K) in
     table time, shape (S, L, K), share (S, L, K) and power (S,) of the L curves.
     """
-    from workbench import covariates
+    from workbench import cohorts, covariates
 
     k = len(data.extra["outcomes"])
     group = np.asarray(draws["scale_group"], dtype=float)[picked]
@@ -567,11 +565,7 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
         effect = np.asarray(draws["cohort_effect"], dtype=float)[picked]
         scale = scale * np.exp(effect.reshape(s, -1, 1))
     # One shape per outcome, or per group and outcome (shape_by_group): per cohort (S, C, K).
-    n_groups = len(data.labels["group"])
-    raw = np.asarray(draws.get("shape_group", draws["shape"]), dtype=float)[picked].reshape(s, -1)
-    by_group = raw.shape[1] == n_groups * k and n_groups > 1
-    shape = (raw.reshape(s, n_groups, k) if by_group
-             else np.broadcast_to(raw.reshape(s, 1, k), (s, n_groups, k)))[:, data.extra["cohort_group"], :]
+    shape = cohorts.group_shapes(draws, len(data.labels["group"]), k)[picked][:, data.extra["cohort_group"], :]
     share = np.asarray(draws["share"], dtype=float)[picked].reshape(s, 1, k)
     power = np.exp(np.asarray(draws.get("curve_power", np.zeros(len(draws["shape"]))),
                               dtype=float)[picked].reshape(s))

@@ -147,11 +147,11 @@ def _element_label(idata, name: str, i: int, size: int) -> str:
     return labels[i] if len(labels) == size else f"{name}[{i}]"
 
 
-def _prior_tails(prior: dict, posterior: dict, names: list[str], idata=None):
+def _prior_tails(prior: dict, posterior: dict, names: list[str], idata):
     """Per parameter: (label, posterior median, share of prior draws below it, prior draws).
 
     For a vector parameter, the element whose median sits furthest in a tail,
-    labelled by its coordinates when ``idata`` gives them.
+    labelled by its coordinates in ``idata``'s posterior.
     """
     for name in names:
         if name not in prior or name not in posterior:
@@ -161,8 +161,7 @@ def _prior_tails(prior: dict, posterior: dict, names: list[str], idata=None):
         share_below = (draws < medians).mean(axis=0)
         tail = np.minimum(share_below, 1.0 - share_below)
         i = int(np.argmin(tail))
-        label = _element_label(idata, name, i, draws.shape[1]) if idata is not None else (
-            name if draws.shape[1] == 1 else f"{name}[{i}]")
+        label = _element_label(idata, name, i, draws.shape[1])
         yield label, float(medians[i]), float(share_below[i]), int(draws.shape[0])
 
 
