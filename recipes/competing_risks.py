@@ -133,7 +133,9 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     k = len(data.extra["outcomes"])
     design = data.extra.get("covariates")
     # Per row and outcome: the covariates' shift of the log timing scale, and the shares.
-    time_shift = np.broadcast_to(covariates.linear_by(design, params, "time_effect"), (data.rows, k))
+    time_shift = np.broadcast_to(covariates.linear_by(design, params, "time_effect")
+                                 + np.reshape(covariates.curvature_shift(design, params), (-1, 1)),
+                                 (data.rows, k))
     share = _shares({**params, "unresolved": 0.0}, k)
     if design is not None and "share_effect" in params:
         share = covariates.shift_shares(share, covariates.linear_by(design, params, "share_effect"),
@@ -173,8 +175,8 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         model_coords[COMPARED] = compared(options, data.extra["outcomes"])
     with pm.Model(coords=model_coords) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
-        time_shift = (None if design is None
-                      else covariates.shifts(design, prior, "time_effect", over="outcome"))
+        time_shift = (None if design is None else covariates.bent(
+            design, prior, relax, covariates.shifts(design, prior, "time_effect", over="outcome"), over=k))
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=("outcome",))
         logit = prior("share_logit", dims="part")
@@ -323,6 +325,7 @@ RECIPE = Recipe(
         Parameter("share_effect", "shift of each outcome's log-odds against the reference (the first "
                   "outcome; staying open for good under resolve=estimate) per sd of a numeric covariate "
                   "(per level of a label)", "normal(0,1.5)"),
+        covariates.CURVATURE_PARAMETER,
         # Relaxation parameters (only present in the expanded models).
         Parameter("unresolved", "share of units that never end (resolve=all relaxed)", "beta(1,20)"),
         *cohorts.RELAXATION_PARAMETERS,
@@ -349,6 +352,7 @@ RECIPE = Recipe(
             informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),
+        cohorts.covariate_form(build_model, "each outcome's log timing scale"),
     ),
     validate=validate,
     simulate=simulate,

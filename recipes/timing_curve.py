@@ -102,7 +102,8 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     eventual *= 1.0 - float(params.get("never", 0.0))
     design = data.extra.get("covariates")
     # Per row: the covariates' shift of the log timing scale and the eventual share.
-    time_shift = np.broadcast_to(covariates.linear(design, params, "time_effect"), (data.rows,))
+    time_shift = np.broadcast_to(covariates.linear(design, params, "time_effect")
+                                 + covariates.curvature_shift(design, params), (data.rows,))
     share = np.full((data.rows, 1), eventual)
     if options["eventual"] == "estimate" and "share_effect" in params:
         logit = np.log(eventual) - np.log1p(-min(eventual, 1.0 - cohorts.EPS))
@@ -137,7 +138,8 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         coords[covariates.DIM] = list(design.effects)
     with pm.Model(coords=coords) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
-        time_shift = None if design is None else covariates.shifts(design, prior, "time_effect")
+        time_shift = None if design is None else covariates.bent(
+            design, prior, relax, covariates.shifts(design, prior, "time_effect"))
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=())
         if options["eventual"] == "estimate":
@@ -295,6 +297,7 @@ RECIPE = Recipe(
         Parameter("eventual", "share of units that ever have the event (eventual=estimate; with "
                   "covariates: at their means and reference levels)", "beta(1,1)"),
         *covariates.PARAMETERS,
+        covariates.CURVATURE_PARAMETER,
         # Relaxation parameters (only present in the expanded models).
         Parameter("never", "share of units that never have the event (eventual=all relaxed)", "beta(1,20)"),
         # sd 0.5 on log-odds: cohorts' eventual shares a few points to about
@@ -338,6 +341,7 @@ RECIPE = Recipe(
             ),
             informed_by=cohorts.cohorts_to_compare,
         ),
+        cohorts.covariate_form(build_model, "the log timing scale"),
     ),
     validate=validate,
     simulate=simulate,

@@ -34,7 +34,7 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
-from workbench import curves, engine, tables, units
+from workbench import covariates, curves, engine, tables, units
 from workbench.errors import DataError
 from workbench.recipe import (Assumption, Column, Dataset, Option, Parameter, Relaxation, Statistic,
                               choose_pooling, flag)
@@ -620,6 +620,21 @@ def cohort_spread(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     return per_cohort.var(axis=-1)
 
 
+def covariate_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Curvature of the standardised cumulative residuals over bands of each numeric covariate
+    (:func:`workbench.covariates.bend`)."""
+    if units.is_units(data):
+        return units.covariate_bend(data, outcomes, draws)
+    mean, var = _moments(data, draws)
+    y = cumulative_counts(data, outcomes["y"])
+
+    def per_band(band, n_bands):
+        onehot = (band[:, None] == np.arange(n_bands)[None, :]).astype(float)
+        return tuple(a.sum(axis=-1) @ onehot for a in (y, mean, var))
+
+    return covariates.bend(data.extra["covariates"], per_band)
+
+
 def cell_dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Pearson chi-square per real cell of the multinomial (1 under multinomial variation)."""
     cum = np.asarray(draws["cumulative"], dtype=float)
@@ -815,6 +830,30 @@ def ages_to_compare(data: Dataset) -> str:
         return ""
     return (f"the table holds {ages} age(s) above 0, and a curve with {needed} parameters passes "
             f"through that many exactly")
+
+
+def covariate_form(build_model, scale: str) -> Assumption:
+    """``covariate_form``: each covariate's effect is linear on the log timing scale (made only
+    when the design has covariates; informed only by a numeric one with three values or more)."""
+    return Assumption(
+        key="covariate_form",
+        statement=f"Each covariate's effect is as modelled: a straight line on {scale}.",
+        statistic=Statistic(
+            "covariate_bend",
+            "curvature of standardised residuals across bands of each numeric covariate (negative: "
+            "the units at both ends of the covariate's range have fewer outcomes than the middle)",
+            covariate_bend,
+        ),
+        relaxation=relaxation(
+            build_model, covariates.CURVATURE,
+            "the covariates' shift of the log timing scale may bend (a square term per numeric covariate)",
+            null=0.0, negligible=covariates.CURVATURE_NEGLIGIBLE, planted=covariates.CURVATURE_PLANTED,
+        ),
+        advice="The effect of a numeric covariate bends: add a transformed column (its log, its square, "
+               "or bands as a label) to --set covariates=..., or ask what else changes along it.",
+        informed_by=covariates.form_to_check,
+        made=covariates.has_covariates,
+    )
 
 
 def shared_assumptions(build_model) -> tuple[Assumption, ...]:

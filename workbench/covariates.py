@@ -77,6 +77,29 @@ PARAMETERS = (
               "level of a label, against its reference level)", "normal(0,1.5)"),
 )
 
+# --- covariate_form: effects as modelled, linear on the model's scale ------------------------
+
+# The relaxation parameter of ``covariate_form``: the log timing scale (or
+# the log-odds of each move) bends with every numeric covariate by
+# ``curvature * (z**2 - 1)``, z the covariate standardised. sd 0.5: 95% of
+# curvatures within +-1, a unit 2 sd from the mean then up to e**3 (20
+# times) as slow or as fast as one at the mean, against e**1.5 (4.5) for
+# half that; the data decide within that range.
+CURVATURE = "covariate_curvature"
+CURVATURE_PARAMETER = Parameter(
+    CURVATURE, "bend of the covariates' shift: curvature x (z^2 - 1) per numeric covariate z "
+               "(standardised; covariate_form relaxed)", "normal(0,0.5)")
+# A curvature this small moves a unit 2 sd from the mean by 3 x 0.05 = 0.15
+# on the log scale (a 16% longer or shorter time) against one at the mean:
+# as small as the cohort effects counted negligible (cohort_sd 0.05, about
+# +-10% between cohorts two sd apart).
+CURVATURE_NEGLIGIBLE = 0.05
+# Planted: a unit 2 sd from the mean 2.5 times as slow as one at the mean.
+CURVATURE_PLANTED = 0.3
+# A curvature needs three distinct values to show; bands of a numeric
+# covariate for the statistic: at most this many, by quantile.
+BANDS = 5
+
 
 @dataclass(frozen=True)
 class Design:
@@ -179,6 +202,95 @@ def read(table: pd.DataFrame, names: tuple[str, ...], recipe: str, reserved: tup
                   np.asarray(mean), references, spans)
 
 
+def has_covariates(options) -> bool:
+    """Whether the design's options name any covariate (``covariate_form`` is made only then)."""
+    return bool(options.get("covariates"))
+
+
+def numeric_names(design: Design | None) -> list[str]:
+    """The numeric covariates of a design (labels have one free effect per level: no form to bend)."""
+    if design is None:
+        return []
+    return [name for name in design.names if not design.is_label(name)]
+
+
+def form_to_check(data) -> str:
+    """Why the table cannot show a covariate's effect bending ("" when it can)."""
+    design = data.extra.get("covariates")
+    numeric = numeric_names(design)
+    if not numeric:
+        return ("every covariate is a label, and a label's levels each have their own effect, so "
+                "there is no form of the effect to be wrong")
+    if any(len(np.unique(design.values(name))) >= 3 for name in numeric):
+        return ""
+    return ("every numeric covariate takes at most two values, and a line passes through two "
+            "points exactly")
+
+
+def curvature_basis(design: Design | None) -> np.ndarray | None:
+    """Per row: the sum over numeric covariates of ``z**2 - 1`` (z standardised); None without any."""
+    numeric = numeric_names(design)
+    if not numeric:
+        return None
+    columns = [design.matrix[:, design.spans[name][0]] for name in numeric]
+    return np.sum([z**2 - 1.0 for z in columns], axis=0)
+
+
+def curvature_shift(design: Design | None, params: dict):
+    """The relaxation's shift per row from one draw (0 when absent, as under the assumption)."""
+    basis = curvature_basis(design)
+    if basis is None or CURVATURE not in params:
+        return 0.0
+    return float(np.asarray(params[CURVATURE]).reshape(-1)[0]) * basis
+
+
+def bands(design: Design, name: str) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's band of a numeric covariate (at most :data:`BANDS`, by quantile) and each band's
+    mean standardised value."""
+    start = design.spans[name][0]
+    z = design.matrix[:, start]
+    distinct = np.unique(z)
+    if distinct.size <= BANDS:
+        band = np.searchsorted(distinct, z)
+    else:
+        edges = np.quantile(z, np.linspace(0, 1, BANDS + 1)[1:-1])
+        band = np.searchsorted(np.unique(edges), z, side="right")
+    band = np.unique(band, return_inverse=True)[1]
+    centres = np.bincount(band, weights=z) / np.bincount(band)
+    return band, centres
+
+
+def bend_contrast(centres: np.ndarray) -> np.ndarray:
+    """Weights over bands that read a residual pattern's curvature: the bands' squared
+    centres with their mean and linear trend removed, of unit length (0 with two bands)."""
+    x = np.asarray(centres, dtype=float)
+    if x.size < 3:
+        return np.zeros_like(x)
+    basis = np.column_stack([np.ones_like(x), x])
+    q = x**2 - basis @ np.linalg.lstsq(basis, x**2, rcond=None)[0]
+    norm = float(np.sqrt((q**2).sum()))
+    return q / norm if norm > 0 else np.zeros_like(x)
+
+
+def bend(design: Design, observed_and_expected) -> np.ndarray:
+    """The ``covariate_bend`` statistic, summed over numeric covariates.
+
+    ``observed_and_expected(band, n_bands)`` returns, per draw, each band's
+    observed outcomes, expected outcomes and variance (S, bands). Each band's
+    standardised residual (observed - expected) / sqrt(variance) is read by
+    :func:`bend_contrast`: negative when the bands at both ends see fewer
+    outcomes than the middle (their times longer than the linear effect
+    says), positive when they see more.
+    """
+    total = 0.0
+    for name in numeric_names(design):
+        band, centres = bands(design, name)
+        o, e, v = observed_and_expected(band, centres.size)
+        r = (o - e) / np.sqrt(np.maximum(v, 1e-9))
+        total = total + r @ bend_contrast(centres)
+    return np.asarray(total, dtype=float)
+
+
 def _is_numeric(column: pd.Series) -> bool:
     if pd.api.types.is_bool_dtype(column):
         return False
@@ -221,6 +333,23 @@ def shifts(design: Design, prior, name: str, over: str | None = None):
     effect = prior(name, dims=dims)
     pm.Deterministic(RATIOS[name], pt.exp(effect / design.per_unit), dims=dims)
     return pt.dot(pt.constant(design.matrix), effect.T)
+
+
+def bent(design: Design, prior, relax: str | None, shift, over: int | None = None):
+    """``shift`` (rows, or rows x ``over`` elements), bent by the ``covariate_form`` relaxation
+    when ``relax`` asks for it: one curvature for every element."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    if relax != CURVATURE:
+        return shift
+    basis = curvature_basis(design)
+    if basis is None:
+        # No numeric covariate: nothing to bend; the expansion stays at its null.
+        pm.Deterministic(CURVATURE, pt.zeros(()))
+        return shift
+    term = prior(CURVATURE) * pt.constant(basis)
+    return shift + (term if over is None else term[:, None])
 
 
 def linear(design: Design, params: dict, name: str) -> np.ndarray:

@@ -47,10 +47,13 @@ class Planted:
     options: dict = field(default_factory=dict)
 
 
-def scenarios(recipe) -> dict[str, Planted]:
-    """The clean scenario plus one planted fault per relaxable assumption."""
+def scenarios(recipe, options=None) -> dict[str, Planted]:
+    """The clean scenario plus one planted fault per relaxable assumption that a design with
+    ``options`` makes (default: the recipe's defaults, so no covariates and no covariate_form)."""
     out = {CLEAN: Planted()}
     for assumption in recipe.assumptions:
+        if not assumption.made_under(options or {}):
+            continue
         relaxation = assumption.relaxation
         if relaxation is not None and relaxation.planted is not None and assumption.key not in out:
             out[assumption.key] = Planted({relaxation.parameter: relaxation.planted},

@@ -164,6 +164,13 @@ class Assumption:
     # the assumption is then `unchecked` with that reason, and neither its
     # statistic nor its relaxation is judged.
     informed_by: Callable[["Dataset"], str] | None = None
+    # ``made(options) -> bool``: False when the design does not make this
+    # assumption at all (no covariates, no covariate_form); None: always made.
+    made: Callable[[Mapping[str, Any]], bool] | None = None
+
+    def made_under(self, options: Mapping[str, Any]) -> bool:
+        """Whether a design with these options makes this assumption."""
+        return self.made is None or bool(self.made(options))
 
     def advice_for(self, options: Mapping[str, Any]) -> str:
         """The advice under the design's options."""
@@ -356,7 +363,8 @@ class Design:
 
     @property
     def assumptions(self) -> tuple[Assumption, ...]:
-        return self.recipe.assumptions
+        """The assumptions this design makes (covariate_form only with covariates)."""
+        return tuple(a for a in self.recipe.assumptions if a.made_under(self.options))
 
     @property
     def outcome_names(self) -> tuple[str, ...]:
@@ -396,6 +404,10 @@ class Design:
         # under private names that another process cannot import: a worker
         # rebuilds the design from plain data (the file, the recipe's name and
         # the options as the user types them).
+        if not self.recipe.source:
+            # A recipe imported as an ordinary module (``from recipes.timing_curve
+            # import RECIPE``) pickles by reference to that module.
+            return (Design, (self.recipe, self.options, dict(self.priors), tuple(self.typed)))
         options = {k: option_text(v) for k, v in self.options.items() if v is not None}
         return (_design_from_source, (self.recipe.source, self.recipe.name, options, dict(self.priors),
                                       tuple(self.typed)))

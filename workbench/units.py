@@ -612,8 +612,11 @@ def _hazard(family, t, scale, shape, share, power):
     return -np.log(np.maximum(survival, curves.TINY_SURVIVAL))
 
 
-def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
+def hazard_counts(data: Dataset, y: np.ndarray, draws: dict, groups: tuple | None = None):
     """Observed and expected outcomes per time bin (S, B) and per cohort (S, C).
+
+    ``groups`` = (index per unit, count) sums per those groups instead of
+    per cohort (bands of a covariate).
 
     ``y`` holds (time, code) per unit with a leading axis of S draws. A
     unit's expected outcomes in a bin are its cumulative hazard over the
@@ -627,8 +630,9 @@ def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
     picked = np.arange(0, s_all, step)
     curve, scale_c, shape, share_c, power = _unit_curves(data, draws, family, picked)
     edges = data.extra["bins"]
-    n_bins, n_cohorts, n_curves = edges.size - 1, len(data.labels["cohort"]), scale_c.shape[1]
+    n_bins, n_curves = edges.size - 1, scale_c.shape[1]
     cohort, entry = data["cohort"], data["entry"]
+    group, n_cohorts = (cohort, len(data.labels["cohort"])) if groups is None else groups
     chunk = max(1, STATISTIC_BUDGET // (20 * max(n, 1)))
     outputs = [np.zeros((picked.size, n_bins)) for _ in range(2)] + \
         [np.zeros((picked.size, n_cohorts)) for _ in range(2)]
@@ -654,7 +658,7 @@ def hazard_counts(data: Dataset, y: np.ndarray, draws: dict):
         seen = (code > 0).astype(float)
         outputs[0][part] = _sums(draw * n_bins + bin_of, seen, m * n_bins).reshape(m, n_bins)
         outputs[1][part] = np.maximum(top - bottom, 0.0)
-        by_cohort = draw * n_cohorts + cohort[None, :]
+        by_cohort = draw * n_cohorts + np.asarray(group)[None, :]
         outputs[2][part] = _sums(by_cohort, seen, m * n_cohorts).reshape(m, n_cohorts)
         outputs[3][part] = _sums(by_cohort, h_t - h_e, m * n_cohorts).reshape(m, n_cohorts)
     # Each value stands for the `step` draws from its own on.
@@ -722,6 +726,17 @@ def cohort_spread(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Variance across cohorts of each cohort's standardised observed-minus-expected outcomes."""
     _, _, observed_cohorts, expected_cohorts = hazard_counts(data, outcomes["y"], draws)
     return standardised(observed_cohorts, expected_cohorts, expected_cohorts).var(axis=-1)
+
+
+def covariate_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """:func:`workbench.covariates.bend` on each band's observed and expected outcomes."""
+    from workbench import covariates
+
+    def per_band(band, n_bands):
+        _, _, observed, expected = hazard_counts(data, outcomes["y"], draws, (band, n_bands))
+        return observed, expected, expected
+
+    return covariates.bend(data.extra["covariates"], per_band)
 
 
 def no_independence_check(data: Dataset) -> str:
