@@ -56,30 +56,40 @@ DETECTABLE_POWER = 0.9
 CLEAN = rates.CLEAN
 
 # Recipes and their layout variants (stage-transitions reads two layouts).
+# A variant's place in this list seeds its layouts: new variants go last, so that
+# the layouts of a seed already measured stay the same.
 VARIANTS = [("threshold-geometry", ""), ("timing-curve", ""), ("competing-risks", ""),
-            ("stage-transitions", "stage counts"), ("stage-transitions", "transition counts")]
+            ("stage-transitions", "stage counts"), ("stage-transitions", "transition counts"),
+            ("timing-curve", layouts.DOSE)]
+# The faults planted on a variant whose layout differs in kind (one row per
+# unit, a covariate): its own assumption and the timing faults a unit layout
+# can show (it has no counts to overdisperse).
+VARIANT_FAULTS = {("timing-curve", layouts.DOSE): ("covariate_form", "curve_shape", "cohort_homogeneity")}
+# Design options a variant's layouts always carry (which assumptions it makes).
+VARIANT_OPTIONS = {("timing-curve", layouts.DOSE): {"covariates": "dose"}}
 
 
-def faults(recipe) -> list[tuple[str, str]]:
+def faults(recipe, variant: str = "") -> list[tuple[str, str]]:
     """(scenario, assumption it breaks): clean, one per relaxation, and the recipe's extra faults."""
     out = [(CLEAN, "")]
-    for scenario in rates.scenarios(recipe):
-        if scenario != CLEAN:
+    only = VARIANT_FAULTS.get((recipe.name, variant))
+    for scenario in rates.scenarios(recipe, VARIANT_OPTIONS.get((recipe.name, variant))):
+        if scenario != CLEAN and (only is None or scenario in only):
             out.append((scenario, scenario))
     for recipe_name, scenario in layouts.STRENGTHS:
-        if recipe_name == recipe.name and ":" in scenario:
+        if recipe_name == recipe.name and ":" in scenario and only is None:
             out.append((scenario, scenario.split(":")[0]))
     return out
 
 
-def planted_for(recipe, scenario: str, rng) -> tuple[dict, dict]:
+def planted_for(recipe, scenario: str, rng, variant: str = "") -> tuple[dict, dict]:
     """(parameter values, design options) that plant ``scenario`` on a random layout."""
     if scenario == CLEAN:
         return {}, {}
     parameter, value = layouts.fault_strength(recipe.name, scenario, rng)
     options = {}
     if ":" not in scenario:
-        options = dict(rates.scenarios(recipe)[scenario].options)
+        options = dict(rates.scenarios(recipe, VARIANT_OPTIONS.get((recipe.name, variant)))[scenario].options)
     return {parameter: value}, options
 
 
@@ -120,7 +130,7 @@ def prepare(reg, name: str, variant: str, scenario: str, seed: int):
     recipe = reg.get(name)
     rng = np.random.default_rng([seed, VARIANTS.index((name, variant)), len(scenario), sum(map(ord, scenario))])
     layout = layouts.draw(name, rng, variant)
-    planted, options = planted_for(recipe, scenario, rng)
+    planted, options = planted_for(recipe, scenario, rng, variant)
     design = make_design(recipe, {**layout.options, **options}, {})
     base = design.validate(layout.table)
     data = simulate(design, base, layout.truth, planted, rng)
@@ -331,7 +341,7 @@ def main() -> int:
             for name, variant in VARIANTS:
                 if args.recipe and name not in args.recipe or args.variant and variant not in args.variant:
                     continue
-                for scenario, target in faults(reg.get(name)):
+                for scenario, target in faults(reg.get(name), variant):
                     if args.scenario and scenario not in args.scenario:
                         continue
                     slug = slug_of(name, variant, scenario, seed)

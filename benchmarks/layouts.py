@@ -36,6 +36,8 @@ STRENGTHS = {
     # order, by this much from the first cohort to the last.
     ("timing-curve", "cohort_homogeneity:eventual-drift"): ("eventual_drift", 1.0, 2.0),
     ("timing-curve", "independent_units"): ("overdispersion", 0.01, 0.04),
+    # A unit 2 sd from the dose's mean 1.8 to 6 times as slow as one at the mean.
+    ("timing-curve", "covariate_form"): ("covariate_curvature", 0.15, 0.45),
     ("competing-risks", "all_resolve"): ("unresolved", 0.05, 0.15),
     ("competing-risks", "curve_shape"): ("curve_power", 0.7, 1.4),
     ("competing-risks", "cohort_homogeneity"): ("cohort_sd", 0.2, 0.4),
@@ -56,6 +58,11 @@ RANGES = {
         "timing scales, evenly or geometrically spaced; in half the layouts later cohorts are "
         "younger (seen at fewer looks, at least 3); scale 5-20 days, shape 1.5-3, eventual share "
         "0.6-0.95"),
+    "timing-curve (units with a dose)": (
+        "150-500 units in 3-8 cohorts, one row per unit, each followed 1.5-4 timing scales "
+        "(administrative censoring); a numeric dose, uniform or skewed (geometric) over a range "
+        "2-20 wide; scale 5-20 days, shape 1.5-3, eventual share 0.6-0.95; the dose shifts the log "
+        "timing scale by -0.5 to 0.5 and the eventual share's log-odds by -0.7 to 0.7 per sd"),
     "competing-risks": (
         "6-14 cohorts of 100-320 units; 5-9 looks from 0.2-0.5 to 4-8 times the faster outcome's "
         "scale, geometrically spaced; in half the layouts later cohorts are younger; first "
@@ -82,7 +89,7 @@ def draw(recipe: str, rng: np.random.Generator, layout: str = "") -> Layout:
     if recipe == "threshold-geometry":
         return _throws(rng)
     if recipe == "timing-curve":
-        return _timing(rng)
+        return _timing_dose(rng) if layout == DOSE else _timing(rng)
     if recipe == "competing-risks":
         return _competing(rng)
     if recipe == "stage-transitions":
@@ -154,6 +161,36 @@ def _timing(rng) -> Layout:
                   {"cohorts": n_cohorts, "looks": int(looks.size), "spacing": spacing, "staggered": staggered,
                    "units": [int(table["exposed"].min()), int(table["exposed"].max())],
                    "scale_days": float(scale_days), "shape": float(shape), "eventual": float(eventual)})
+
+
+DOSE = "units with a dose"
+
+
+def _timing_dose(rng) -> Layout:
+    """One row per unit with a numeric covariate (``dose``) that shifts its timing and share."""
+    scale_days, shape, eventual = rng.uniform(5, 20), rng.uniform(1.5, 3.0), rng.uniform(0.6, 0.95)
+    n, n_cohorts = int(rng.integers(150, 501)), int(rng.integers(3, 9))
+    low, width = rng.uniform(0, 5), rng.uniform(2, 20)
+    skewed = bool(rng.random() < 0.5)
+    if skewed:
+        dose = low + width * (np.exp(rng.uniform(0, np.log(11), n)) - 1) / 10
+    else:
+        dose = rng.uniform(low, low + width, n)
+    follow = np.round(scale_days * rng.uniform(1.5, 4.0, n), 2)
+    # A skeleton: every unit censored at its follow-up time but the first (the
+    # table must hold one event); the simulator redraws every unit's outcome.
+    table = pd.DataFrame({"time": follow, "event": np.r_[1, np.zeros(n - 1, dtype=int)],
+                          "cohort": [f"c{c + 1}" for c in rng.integers(0, n_cohorts, n)],
+                          "dose": np.round(dose, 2)})
+    age_ref = float(np.median(table["time"]))
+    truth = {"scale": scale_days / age_ref, "shape": float(shape), "eventual": float(eventual),
+             "time_effect": np.array([rng.uniform(-0.5, 0.5)]),
+             "share_effect": np.array([rng.uniform(-0.7, 0.7)])}
+    return Layout({"family": "weibull", "eventual": "estimate", "covariates": "dose"}, table, truth,
+                  {"units": n, "cohorts": n_cohorts, "dose": [float(dose.min()), float(dose.max())],
+                   "skewed": skewed, "scale_days": float(scale_days), "shape": float(shape),
+                   "eventual": float(eventual), "time_effect": float(truth["time_effect"][0]),
+                   "share_effect": float(truth["share_effect"][0])})
 
 
 def _competing(rng) -> Layout:

@@ -176,7 +176,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     with pm.Model(coords=model_coords) as model:
         counts = units.container(data) if unit else cohorts.counts_container(data)
         time_shift = (None if design is None else covariates.bent(
-            design, prior, relax, covariates.shifts(design, prior, "time_effect", over="outcome"), over=k))
+            design, prior, relax, covariates.shifts(design, prior, "time_effect", over="outcome"), by_element=True))
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=("outcome",))
         logit = prior("share_logit", dims="part")

@@ -505,14 +505,16 @@ def cohort_covariates(data: Dataset) -> covariates.Design | None:
     return design.take(first)
 
 
-def _cohort_matrices(data: Dataset, matrices, group_logit, prior):
+def _cohort_matrices(data: Dataset, matrices, group_logit, prior, relax: str | None = None):
     """Each cohort's matrix (C, S, S): its group's, each move's log-odds against staying
-    shifted by the cohort's covariates (``move_effect``, dims (move, covariate))."""
+    shifted by the cohort's covariates (``move_effect``, dims (move, covariate)); under the
+    ``covariate_form`` relaxation the shift bends with each numeric covariate."""
     design = cohort_covariates(data)
     cohort_group = _cohort_group(data)
     if design is None:
         return matrices[cohort_group]
-    shift = covariates.shifts(design, prior, "move_effect", over="move")
+    shift = covariates.bent(design, prior, relax, covariates.shifts(design, prior, "move_effect", over="move"),
+                            by_element=True)
     return _matrix_from_logits(data, group_logit[cohort_group] + shift)
 
 
@@ -585,7 +587,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
     with pm.Model(coords=coords) as model:
         counts = pm.Data("counts", values["counts"], dims=("step", "stage"))
         moving = pm.Data("sources", values["sources"], dims=("step", "stage"))
-        per_cohort = _cohort_matrices(data, *transition_matrices(data, options, prior), prior)
+        per_cohort = _cohort_matrices(data, *transition_matrices(data, options, prior), prior, relax)
         per_step = per_cohort[data.extra["step_cohort"]]
         if relax == "stay_drift":
             per_step = _with_drift(data, per_step, prior("stay_drift"))
@@ -643,6 +645,7 @@ def shifted_by_covariates(data: Dataset, matrices: np.ndarray, params: dict) -> 
     if design is None or "move_effect" not in params:
         return matrices
     shift = covariates.linear_by(design, params, "move_effect")  # (..., C, moves)
+    shift = shift + np.asarray(covariates.curvature_shift(design, params))[..., None]
     rows, cols = _moves(data)
     out = np.array(matrices, dtype=float)
     for i in np.unique(rows):
@@ -858,6 +861,21 @@ def period_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
                                 var[..., transient].reshape(s, -1), x)
 
 
+def move_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """Curvature of transient-stage residuals across bands of each numeric covariate
+    (:func:`workbench.covariates.bend`; each step in its cohort's band)."""
+    mean, var, _ = _moments(data, draws)
+    transient = ~data.extra["absorbing"]
+    y = np.asarray(outcomes["y"], dtype=float)[..., transient].sum(axis=-1)
+    mean, var = mean[..., transient].sum(axis=-1), var[..., transient].sum(axis=-1)
+
+    def per_band(band, n_bands):
+        onehot = (band[:, None] == np.arange(n_bands)[None, :]).astype(float)
+        return y @ onehot, mean @ onehot, var @ onehot
+
+    return covariates.bend(data.extra["covariates"].take(data.extra["step"]), per_band)
+
+
 def _reachable(data: Dataset) -> np.ndarray:
     """Mask (steps, stages) of the destinations some mover of the step can reach."""
     moving = observed(data)["sources"]
@@ -1051,6 +1069,8 @@ RECIPE = Recipe(
         Parameter("stay_drift", "change of log stay weight per sd of period", "normal(0,0.5)"),
         Parameter("overdispersion", "correlation of units' moves within a cohort and period",
                   "beta(1,30)"),
+        Parameter(covariates.CURVATURE, "bend of the covariates' shift of every move's log-odds: curvature "
+                  "x (z^2 - 1) per numeric covariate z (standardised; covariate_form relaxed)", "normal(0,0.5)"),
     ),
     assumptions=(
         Assumption(
@@ -1099,6 +1119,12 @@ RECIPE = Recipe(
 
             informed_by=movers_to_compare,
         ),
+        covariates.form_assumption(build_model, "each move's log-odds against staying", Statistic(
+            "move_bend",
+            "curvature of transient-stage residuals across bands of each numeric covariate (negative: "
+            "cohorts at both ends of the covariate's range stay less than the middle)",
+            move_bend,
+        )),
     ),
     validate=validate,
     simulate=simulate,

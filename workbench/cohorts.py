@@ -833,27 +833,13 @@ def ages_to_compare(data: Dataset) -> str:
 
 
 def covariate_form(build_model, scale: str) -> Assumption:
-    """``covariate_form``: each covariate's effect is linear on the log timing scale (made only
-    when the design has covariates; informed only by a numeric one with three values or more)."""
-    return Assumption(
-        key="covariate_form",
-        statement=f"Each covariate's effect is as modelled: a straight line on {scale}.",
-        statistic=Statistic(
-            "covariate_bend",
-            "curvature of standardised residuals across bands of each numeric covariate (negative: "
-            "the units at both ends of the covariate's range have fewer outcomes than the middle)",
-            covariate_bend,
-        ),
-        relaxation=relaxation(
-            build_model, covariates.CURVATURE,
-            "the covariates' shift of the log timing scale may bend (a square term per numeric covariate)",
-            null=0.0, negligible=covariates.CURVATURE_NEGLIGIBLE, planted=covariates.CURVATURE_PLANTED,
-        ),
-        advice="The effect of a numeric covariate bends: add a transformed column (its log, its square, "
-               "or bands as a label) to --set covariates=..., or ask what else changes along it.",
-        informed_by=covariates.form_to_check,
-        made=covariates.has_covariates,
-    )
+    """``covariate_form`` of a timing recipe (:func:`workbench.covariates.form_assumption`)."""
+    return covariates.form_assumption(build_model, scale, Statistic(
+        "covariate_bend",
+        "curvature of standardised residuals across bands of each numeric covariate (negative: "
+        "the units at both ends of the covariate's range have fewer outcomes than the middle)",
+        covariate_bend,
+    ))
 
 
 def shared_assumptions(build_model) -> tuple[Assumption, ...]:

@@ -35,7 +35,7 @@ import pandas as pd
 
 from workbench import tables
 from workbench.errors import DataError
-from workbench.recipe import Option, Parameter
+from workbench.recipe import Assumption, Option, Parameter, Relaxation, Statistic
 
 # A column is read as numbers when more than this share of its non-empty
 # cells are numbers; its other cells are then errors (a typo in a dose
@@ -94,7 +94,8 @@ CURVATURE_PARAMETER = Parameter(
 # as small as the cohort effects counted negligible (cohort_sd 0.05, about
 # +-10% between cohorts two sd apart).
 CURVATURE_NEGLIGIBLE = 0.05
-# Planted: a unit 2 sd from the mean 2.5 times as slow as one at the mean.
+# Planted: a unit 2 sd from the mean 2.5 times as slow as one at the mean
+# (or, for moves, with 2.5 times the odds of each move).
 CURVATURE_PLANTED = 0.3
 # A curvature needs three distinct values to show; bands of a numeric
 # covariate for the statistic: at most this many, by quantile.
@@ -241,7 +242,9 @@ def curvature_shift(design: Design | None, params: dict):
     basis = curvature_basis(design)
     if basis is None or CURVATURE not in params:
         return 0.0
-    return float(np.asarray(params[CURVATURE]).reshape(-1)[0]) * basis
+    curvature = np.asarray(params[CURVATURE], dtype=float)
+    # One draw: (rows,); draws (S,): (S, rows).
+    return curvature.reshape(-1)[0] * basis if curvature.size == 1 else curvature.reshape(-1, 1) * basis
 
 
 def bands(design: Design, name: str) -> tuple[np.ndarray, np.ndarray]:
@@ -335,9 +338,9 @@ def shifts(design: Design, prior, name: str, over: str | None = None):
     return pt.dot(pt.constant(design.matrix), effect.T)
 
 
-def bent(design: Design, prior, relax: str | None, shift, over: int | None = None):
-    """``shift`` (rows, or rows x ``over`` elements), bent by the ``covariate_form`` relaxation
-    when ``relax`` asks for it: one curvature for every element."""
+def bent(design: Design, prior, relax: str | None, shift, by_element: bool = False):
+    """``shift`` (rows, or rows x elements when ``by_element``), bent by the ``covariate_form``
+    relaxation when ``relax`` asks for it: one curvature for every element."""
     import pymc as pm
     import pytensor.tensor as pt
 
@@ -349,7 +352,32 @@ def bent(design: Design, prior, relax: str | None, shift, over: int | None = Non
         pm.Deterministic(CURVATURE, pt.zeros(()))
         return shift
     term = prior(CURVATURE) * pt.constant(basis)
-    return shift + (term if over is None else term[:, None])
+    return shift + (term[:, None] if by_element else term)
+
+
+def form_assumption(build_model, scale: str, statistic: Statistic) -> Assumption:
+    """``covariate_form``: each covariate's effect is a straight line on ``scale``.
+
+    Made only when the design has covariates; informed only by a numeric
+    covariate with three values or more; relaxed by :data:`CURVATURE`
+    (``build_model(..., relax=CURVATURE)`` adds it through :func:`bent`).
+    """
+    from functools import partial
+
+    return Assumption(
+        key="covariate_form",
+        statement=f"Each covariate's effect is as modelled: a straight line on {scale}.",
+        statistic=statistic,
+        relaxation=Relaxation(
+            parameter=CURVATURE, build=partial(build_model, relax=CURVATURE),
+            meaning=f"the covariates' shift of {scale} may bend (a square term per numeric covariate)",
+            null=0.0, negligible=CURVATURE_NEGLIGIBLE, planted=CURVATURE_PLANTED,
+        ),
+        advice="The effect of a numeric covariate bends: add a transformed column (its log, its square, "
+               "or bands as a label) to --set covariates=..., or ask what else changes along it.",
+        informed_by=form_to_check,
+        made=has_covariates,
+    )
 
 
 def linear(design: Design, params: dict, name: str) -> np.ndarray:
