@@ -64,7 +64,8 @@ VARIANTS = [("threshold-geometry", ""), ("timing-curve", ""), ("competing-risks"
 # The faults planted on a variant whose layout differs in kind (one row per
 # unit, a covariate): its own assumption and the timing faults a unit layout
 # can show (it has no counts to overdisperse).
-VARIANT_FAULTS = {("timing-curve", layouts.DOSE): ("covariate_form", "curve_shape", "cohort_homogeneity")}
+VARIANT_FAULTS = {("timing-curve", layouts.DOSE): ("covariate_form", "covariate_form:shape", "curve_shape",
+                                                   "cohort_homogeneity")}
 # Design options a variant's layouts always carry (which assumptions it makes).
 VARIANT_OPTIONS = {("timing-curve", layouts.DOSE): {"covariates": "dose"}}
 
@@ -76,9 +77,11 @@ def faults(recipe, variant: str = "") -> list[tuple[str, str]]:
     for scenario in rates.scenarios(recipe, VARIANT_OPTIONS.get((recipe.name, variant))):
         if scenario != CLEAN and (only is None or scenario in only):
             out.append((scenario, scenario))
+    made = {a.key for a in recipe.assumptions if a.made_under(VARIANT_OPTIONS.get((recipe.name, variant), {}))}
     for recipe_name, scenario in layouts.STRENGTHS:
-        if recipe_name == recipe.name and ":" in scenario and only is None:
-            out.append((scenario, scenario.split(":")[0]))
+        key = scenario.split(":")[0]
+        if recipe_name == recipe.name and ":" in scenario and key in made and (only is None or scenario in only):
+            out.append((scenario, key))
     return out
 
 

@@ -118,7 +118,8 @@ def power(design, base, truth: dict, planted: dict, scenario: str, sims: int, rn
     crit = critical_value(parameter, df)
     # Starting values of the expansion just off its null, on the unconstrained scale.
     nudge = {"cohort_z": 0.0, "cohort_sd_log__": np.log(0.3), "curve_power": 0.0,
-             "spread_slope": 0.0, "stay_drift": 0.0, "covariate_curvature": 0.0}
+             "spread_slope": 0.0, "stay_drift": 0.0, "covariate_curvature": 0.0,
+             "shape_slope": 0.0}
     nudge.update({name: -4.0 for name in alt.names if name not in null.names and name not in nudge})
     rejected = 0
     for _ in range(sims):

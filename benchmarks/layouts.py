@@ -38,6 +38,9 @@ STRENGTHS = {
     ("timing-curve", "independent_units"): ("overdispersion", 0.01, 0.04),
     # A unit 2 sd from the dose's mean 1.8 to 6 times as slow as one at the mean.
     ("timing-curve", "covariate_form"): ("covariate_curvature", 0.15, 0.45),
+    # The dose moves the curve's shape: a unit 2 sd above the mean dose has a
+    # shape 1.35 to 2.2 times the typical one.
+    ("timing-curve", "covariate_form:shape"): ("shape_slope", 0.15, 0.4),
     ("competing-risks", "all_resolve"): ("unresolved", 0.05, 0.15),
     ("competing-risks", "curve_shape"): ("curve_power", 0.7, 1.4),
     ("competing-risks", "cohort_homogeneity"): ("cohort_sd", 0.2, 0.4),

@@ -145,11 +145,13 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     if units.is_units(data):
         return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, k),
                               cohorts.shapes_of(data, params, k), share,
-                              power=power, log_shift=time_shift)
+                              power=power, log_shift=time_shift,
+                              log_shape_shift=covariates.shape_shift(design, params))
     last = data.extra["last_row"]
+    shape_shift = np.broadcast_to(covariates.shape_shift(design, params), (data.rows,))
     counts = cohorts.simulate_units(
         rng, data, options["family"], cohorts.scales_of(rng, data, params, k) * np.exp(time_shift[last]),
-        cohorts.shapes_of(data, params, k), share[last], power=power,
+        cohorts.shapes_of(data, params, k) * np.exp(shape_shift[last])[:, None], share[last], power=power,
         rho=float(params.get("overdispersion", 0.0)),
     )
     return data.replace(**{name: counts[:, j] for j, name in enumerate(data.extra["outcomes"])})
@@ -177,6 +179,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         counts = units.container(data) if unit else cohorts.counts_container(data)
         time_shift = (None if design is None else covariates.bent(
             design, prior, relax, covariates.shifts(design, prior, "time_effect", over="outcome"), by_element=True))
+        shape_shift = None if design is None else covariates.shaped(design, prior, relax)
         scale_group = cohorts.timing_scales(data, options, prior, dims=("outcome",), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=("outcome",))
         logit = prior("share_logit", dims="part")
@@ -214,10 +217,11 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         if unit:
             closed = not estimate and relax != "unresolved"
             units.likelihood(data, counts, options["family"], scale_group, shape, row_share, relax, prior,
-                             closed, log_shift=time_shift)
+                             closed, log_shift=time_shift, log_shape_shift=shape_shift)
             return model
         cumulative = cohorts.cumulative_tensor(
             data, options["family"], scale_group, shape, row_share, relax, prior, log_shift=time_shift,
+            log_shape_shift=shape_shift,
         )
         pm.Deterministic("cumulative", cumulative, dims=("row", "outcome"))
         cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
@@ -326,6 +330,7 @@ RECIPE = Recipe(
                   "outcome; staying open for good under resolve=estimate) per sd of a numeric covariate "
                   "(per level of a label)", "normal(0,1.5)"),
         covariates.CURVATURE_PARAMETER,
+        covariates.SHAPE_SLOPE_PARAMETER,
         # Relaxation parameters (only present in the expanded models).
         Parameter("unresolved", "share of units that never end (resolve=all relaxed)", "beta(1,20)"),
         *cohorts.RELAXATION_PARAMETERS,
@@ -352,7 +357,7 @@ RECIPE = Recipe(
             informed_by=cohorts.ages_to_compare,
         ),
         *cohorts.shared_assumptions(build_model),
-        cohorts.covariate_form(build_model, "each outcome's log timing scale"),
+        *cohorts.covariate_form(build_model, "each outcome's log timing scale"),
     ),
     validate=validate,
     simulate=simulate,

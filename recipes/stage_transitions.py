@@ -1119,7 +1119,7 @@ RECIPE = Recipe(
 
             informed_by=movers_to_compare,
         ),
-        covariates.form_assumption(build_model, "each move's log-odds against staying", Statistic(
+        *covariates.form_assumption(build_model, "each move's log-odds against staying", Statistic(
             "move_bend",
             "curvature of transient-stage residuals across bands of each numeric covariate (negative: "
             "cohorts at both ends of the covariate's range stay less than the middle)",

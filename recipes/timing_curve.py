@@ -111,12 +111,14 @@ def simulate(rng: np.random.Generator, data: Dataset, params: dict, options: dic
     if units.is_units(data):
         return units.simulate(rng, data, options["family"], cohorts.scales_of(rng, data, params, 1),
                               cohorts.shapes_of(data, params, 1), share,
-                              power=float(np.exp(params.get("curve_power", 0.0))), log_shift=time_shift)
+                              power=float(np.exp(params.get("curve_power", 0.0))), log_shift=time_shift,
+                              log_shape_shift=covariates.shape_shift(design, params))
     last = data.extra["last_row"]
+    shape_shift = np.broadcast_to(covariates.shape_shift(design, params), (data.rows,))
     counts = cohorts.simulate_units(
         rng, data, options["family"],
         cohorts.scales_of(rng, data, params, 1) * np.exp(time_shift[last])[:, None],
-        cohorts.shapes_of(data, params, 1), share[last],
+        cohorts.shapes_of(data, params, 1) * np.exp(shape_shift[last])[:, None], share[last],
         power=float(np.exp(params.get("curve_power", 0.0))),
         rho=float(params.get("overdispersion", 0.0)),
     )
@@ -140,6 +142,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
         counts = units.container(data) if unit else cohorts.counts_container(data)
         time_shift = None if design is None else covariates.bent(
             design, prior, relax, covariates.shifts(design, prior, "time_effect"))
+        shape_shift = None if design is None else covariates.shaped(design, prior, relax)
         scale_group = cohorts.timing_scales(data, options, prior, dims=(), counts=counts)
         shape = cohorts.timing_shapes(data, options, prior, dims=())
         if options["eventual"] == "estimate":
@@ -175,7 +178,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
                 pm.Deterministic("cohort_share_sd", pt.zeros(()))
             closed = options["eventual"] == "all" and relax != "never"
             units.likelihood(data, counts, options["family"], scale_group, shape, row_share, relax, prior,
-                             closed, log_shift=time_shift)
+                             closed, log_shift=time_shift, log_shape_shift=shape_shift)
             return model
         if relax == "cohort_share_sd" and options["eventual"] == "estimate":
             # Each cohort's eventual share on the log-odds scale about the typical one.
@@ -193,7 +196,7 @@ def build_model(data: Dataset, options: dict, prior, relax: str | None = None):
                 pm.Deterministic("cohort_share_sd", pt.zeros(()))
             cumulative = cohorts.cumulative_tensor(
                 data, options["family"], scale_group, shape, row_share, relax, prior,
-                log_shift=time_shift,
+                log_shift=time_shift, log_shape_shift=shape_shift,
             )
         pm.Deterministic("cumulative", cumulative[:, 0], dims="row")
         cohorts.cell_likelihood(data, counts, cohorts.cells_tensor(data, cumulative), relax, prior)
@@ -298,6 +301,7 @@ RECIPE = Recipe(
                   "covariates: at their means and reference levels)", "beta(1,1)"),
         *covariates.PARAMETERS,
         covariates.CURVATURE_PARAMETER,
+        covariates.SHAPE_SLOPE_PARAMETER,
         # Relaxation parameters (only present in the expanded models).
         Parameter("never", "share of units that never have the event (eventual=all relaxed)", "beta(1,20)"),
         # sd 0.5 on log-odds: cohorts' eventual shares a few points to about
@@ -341,7 +345,7 @@ RECIPE = Recipe(
             ),
             informed_by=cohorts.cohorts_to_compare,
         ),
-        cohorts.covariate_form(build_model, "the log timing scale"),
+        *cohorts.covariate_form(build_model, "the log timing scale"),
     ),
     validate=validate,
     simulate=simulate,

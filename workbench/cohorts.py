@@ -384,13 +384,14 @@ def event_ages(data: Dataset, counts):
 
 
 def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, relax: str | None, prior,
-                      log_shift=None):
+                      log_shift=None, log_shape_shift=None):
     """Cumulative incidence per row and outcome (rows, K) as a PyTensor expression.
 
     ``shape`` is what :func:`timing_shapes` returns; ``share`` is one share
     per outcome (K,) or per row and outcome (rows, K); ``log_shift`` (rows,)
     or (rows, K), when given, shifts each row's log timing scale, or each
-    outcome's (covariates).
+    outcome's (covariates); ``log_shape_shift`` (rows,) shifts each row's log
+    curve shape (the covariates' shape relaxation).
 
     Adds the shared relaxations: ``curve_power`` (F ** exp(curve_power),
     the exponentiated family) and ``cohort_sd`` (a cohort effect on log scale).
@@ -411,6 +412,8 @@ def cumulative_tensor(data: Dataset, family: str, scale_group, shape, share, rel
     age = pt.constant(relative_age(data))[:, None]
     # One shape per outcome, or (groups, K) under shape_by_group.
     shape = shape[data["group"]] if shape.ndim == 2 else pt.reshape(shape, (k,))
+    if log_shape_shift is not None:
+        shape = shape * pt.exp(log_shape_shift)[:, None]
     f = curves.cdf_tensor(family, age, scale_row, shape)
     if relax == "curve_power":
         f = f ** pt.exp(prior("curve_power"))
@@ -635,6 +638,22 @@ def covariate_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     return covariates.bend(data.extra["covariates"], per_band)
 
 
+def covariate_age_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """How the slope of standardised cumulative residuals on log age changes across bands of each
+    numeric covariate (:func:`workbench.covariates.age_trend_spread`)."""
+    if units.is_units(data):
+        return units.covariate_age_trend(data, outcomes, draws)
+    mean, var = _moments(data, draws)
+    y = cumulative_counts(data, outcomes["y"])
+    k = mean.shape[-1]
+    log_age = np.log(np.maximum(data["age"], curves.TINY_TIME))
+
+    def band_slopes(rows):
+        return residual_trend(*_flat(y[:, rows], mean[:, rows], var[:, rows]), np.repeat(log_age[rows], k))
+
+    return covariates.age_trend_spread(data.extra["covariates"], band_slopes)
+
+
 def cell_dispersion(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     """Pearson chi-square per real cell of the multinomial (1 under multinomial variation)."""
     cum = np.asarray(draws["cumulative"], dtype=float)
@@ -832,13 +851,18 @@ def ages_to_compare(data: Dataset) -> str:
             f"through that many exactly")
 
 
-def covariate_form(build_model, scale: str) -> Assumption:
+def covariate_form(build_model, scale: str) -> tuple[Assumption, ...]:
     """``covariate_form`` of a timing recipe (:func:`workbench.covariates.form_assumption`)."""
     return covariates.form_assumption(build_model, scale, Statistic(
         "covariate_bend",
         "curvature of standardised residuals across bands of each numeric covariate (negative: "
         "the units at both ends of the covariate's range have fewer outcomes than the middle)",
         covariate_bend,
+    ), timing=Statistic(
+        "covariate_age_trend",
+        "trend across bands of each numeric covariate of the slope of standardised residuals on log "
+        "age (0 when the covariate shifts the timing alike at every age)",
+        covariate_age_trend,
     ))
 
 

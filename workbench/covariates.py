@@ -97,6 +97,21 @@ CURVATURE_NEGLIGIBLE = 0.05
 # Planted: a unit 2 sd from the mean 2.5 times as slow as one at the mean
 # (or, for moves, with 2.5 times the odds of each move).
 CURVATURE_PLANTED = 0.3
+# The second relaxation of ``covariate_form`` in the timing recipes: the
+# covariates act on the curve's shape as well as its scale, so their time
+# ratio differs between early and late ages (the accelerated failure time
+# form fails). The log curve shape moves by ``shape_slope`` per sd of each
+# numeric covariate. sd 0.3: 95% of slopes within +-0.6, a unit 2 sd from
+# the mean then with a shape up to 3.3 times (or a third of) the typical one.
+SHAPE_SLOPE = "shape_slope"
+SHAPE_SLOPE_PARAMETER = Parameter(
+    SHAPE_SLOPE, "change of the log curve shape per sd of each numeric covariate (covariate_form "
+                 "relaxed: the covariates' time ratio differs between early and late ages)", "normal(0,0.3)")
+# A slope this small changes the shape of a unit 2 sd from the mean by 6%:
+# less than a shape's posterior sd on a few hundred units.
+SHAPE_NEGLIGIBLE = 0.03
+# Planted: a unit 2 sd above the mean has a shape 1.6 times the typical one.
+SHAPE_PLANTED = 0.25
 # A curvature needs three distinct values to show; bands of a numeric
 # covariate for the statistic: at most this many, by quantile.
 BANDS = 5
@@ -247,6 +262,24 @@ def curvature_shift(design: Design | None, params: dict):
     return curvature.reshape(-1)[0] * basis if curvature.size == 1 else curvature.reshape(-1, 1) * basis
 
 
+def shape_basis(design: Design | None) -> np.ndarray | None:
+    """Per row: the sum of the standardised numeric covariates; None without any."""
+    numeric = numeric_names(design)
+    if not numeric:
+        return None
+    return np.sum([design.matrix[:, design.spans[name][0]] for name in numeric], axis=0)
+
+
+def shape_shift(design: Design | None, params: dict):
+    """The shape relaxation's shift of the log curve shape per row (0 when absent);
+    one draw gives (rows,), draws (S,) give (S, rows)."""
+    basis = shape_basis(design)
+    if basis is None or SHAPE_SLOPE not in params:
+        return 0.0
+    slope = np.asarray(params[SHAPE_SLOPE], dtype=float)
+    return slope.reshape(-1)[0] * basis if slope.size == 1 else slope.reshape(-1, 1) * basis
+
+
 def bands(design: Design, name: str) -> tuple[np.ndarray, np.ndarray]:
     """Each row's band of a numeric covariate (at most :data:`BANDS`, by quantile) and each band's
     mean standardised value."""
@@ -291,6 +324,32 @@ def bend(design: Design, observed_and_expected) -> np.ndarray:
         o, e, v = observed_and_expected(band, centres.size)
         r = (o - e) / np.sqrt(np.maximum(v, 1e-9))
         total = total + r @ bend_contrast(centres)
+    return np.asarray(total, dtype=float)
+
+
+def trend_contrast(centres: np.ndarray) -> np.ndarray:
+    """Weights over bands that read a straight trend: the centred band centres, of unit length."""
+    x = np.asarray(centres, dtype=float) - np.mean(centres)
+    norm = float(np.sqrt((x**2).sum()))
+    return x / norm if norm > 0 else np.zeros_like(x)
+
+
+def age_trend_spread(design: Design, band_slopes) -> np.ndarray:
+    """The ``covariate_age_trend`` statistic, summed over numeric covariates.
+
+    ``band_slopes(rows)`` returns, per draw, the slope of standardised
+    residuals on log age over the rows (units or table rows) of one band.
+    The bands' slopes are read by :func:`trend_contrast`: zero when the
+    covariate shifts the timing alike at every age, positive when the bands
+    high on the covariate see their outcomes come later against the curve's
+    shape than the low ones (their time ratio grows with age), negative for
+    the reverse.
+    """
+    total = 0.0
+    for name in numeric_names(design):
+        band, centres = bands(design, name)
+        slopes = np.stack([band_slopes(np.flatnonzero(band == b)) for b in range(centres.size)], axis=-1)
+        total = total + slopes @ trend_contrast(centres)
     return np.asarray(total, dtype=float)
 
 
@@ -355,29 +414,71 @@ def bent(design: Design, prior, relax: str | None, shift, by_element: bool = Fal
     return shift + (term[:, None] if by_element else term)
 
 
-def form_assumption(build_model, scale: str, statistic: Statistic) -> Assumption:
-    """``covariate_form``: each covariate's effect is a straight line on ``scale``.
+def shaped(design: Design, prior, relax: str | None):
+    """The shape relaxation's shift of the log curve shape per row, or None when not relaxed."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    if relax != SHAPE_SLOPE:
+        return None
+    basis = shape_basis(design)
+    if basis is None:
+        # No numeric covariate: nothing to move the shape; the expansion stays at its null.
+        pm.Deterministic(SHAPE_SLOPE, pt.zeros(()))
+        return None
+    return prior(SHAPE_SLOPE) * pt.constant(basis)
+
+
+FORM_ADVICE = ("The effect of a numeric covariate is not the modelled straight line: add a transformed "
+               "column (its log, its square, or bands as a label) to --set covariates=...; when its time "
+               "ratio differs between early and late ages, fit the groups it defines with their own "
+               "shapes (bands as a group column with --set shape_by_group=true), or ask what else "
+               "changes along it.")
+
+
+def form_assumption(build_model, scale: str, statistic: Statistic, timing: Statistic | None = None) -> tuple:
+    """``covariate_form``: each covariate's effect is a straight line on ``scale`` (and, with
+    ``timing``, the statistic of its age pattern, the same at every age).
 
     Made only when the design has covariates; informed only by a numeric
     covariate with three values or more; relaxed by :data:`CURVATURE`
-    (``build_model(..., relax=CURVATURE)`` adds it through :func:`bent`).
+    (``build_model(..., relax=CURVATURE)`` adds it through :func:`bent`) and,
+    with ``timing``, by :data:`SHAPE_SLOPE` (through :func:`shaped`), in an
+    entry of the same key that carries the ``timing`` statistic.
     """
     from functools import partial
 
-    return Assumption(
+    statement = f"Each covariate's effect is as modelled: a straight line on {scale}" + (
+        ", the same at every age." if timing is not None else ".")
+    entries = [Assumption(
         key="covariate_form",
-        statement=f"Each covariate's effect is as modelled: a straight line on {scale}.",
+        statement=statement,
         statistic=statistic,
         relaxation=Relaxation(
             parameter=CURVATURE, build=partial(build_model, relax=CURVATURE),
             meaning=f"the covariates' shift of {scale} may bend (a square term per numeric covariate)",
             null=0.0, negligible=CURVATURE_NEGLIGIBLE, planted=CURVATURE_PLANTED,
         ),
-        advice="The effect of a numeric covariate bends: add a transformed column (its log, its square, "
-               "or bands as a label) to --set covariates=..., or ask what else changes along it.",
+        advice=FORM_ADVICE,
         informed_by=form_to_check,
         made=has_covariates,
-    )
+    )]
+    if timing is not None:
+        entries.append(Assumption(
+            key="covariate_form",
+            statement=statement,
+            statistic=timing,
+            relaxation=Relaxation(
+                parameter=SHAPE_SLOPE, build=partial(build_model, relax=SHAPE_SLOPE),
+                meaning="the covariates may change the curve's shape too (their time ratio then "
+                        "differs between early and late ages)",
+                null=0.0, negligible=SHAPE_NEGLIGIBLE, planted=SHAPE_PLANTED,
+            ),
+            advice=FORM_ADVICE,
+            informed_by=form_to_check,
+            made=has_covariates,
+        ))
+    return tuple(entries)
 
 
 def linear(design: Design, params: dict, name: str) -> np.ndarray:

@@ -356,14 +356,15 @@ def unit_scales(data: Dataset, scale_group, relax: str | None, prior):
 
 
 def likelihood(data: Dataset, units, family: str, scale_group, shape, share, relax: str | None,
-               prior, closed: bool, log_shift=None):
+               prior, closed: bool, log_shift=None, log_shape_shift=None):
     """The observed units ``y``: the censored, truncated mixture likelihood of the module docstring.
 
     ``closed`` is True when the shares add up to one by construction (every
     unit ends in an outcome): the survival then has no open part. ``share``
     is one share per outcome (K,) or one per unit and outcome (units, K);
     ``log_shift`` (units,) or (units, K), when given, shifts each unit's log
-    timing scale, or each outcome's (covariates in the accelerated failure time form).
+    timing scale, or each outcome's (covariates in the accelerated failure time form);
+    ``log_shape_shift`` (units,) each unit's log curve shape.
     """
     import pymc as pm
     import pytensor.tensor as pt
@@ -380,6 +381,8 @@ def likelihood(data: Dataset, units, family: str, scale_group, shape, share, rel
     random = partial(_random, family=family)
     # One shape per outcome, or (groups, K) under shape_by_group: each unit its group's.
     shape = shape[data["group"]] if shape.ndim == 2 else pt.reshape(shape, (k,))
+    if log_shape_shift is not None:
+        shape = shape * pt.exp(log_shape_shift)[:, None]
     return pm.CustomDist(
         "y", entry, follow, scale, shape, share, power,
         pt.zeros(len(FIELDS)),
@@ -490,19 +493,25 @@ def draw_units(rng: np.random.Generator, family: str, entry, follow, scale, shap
 
 
 def simulate(rng: np.random.Generator, data: Dataset, family: str, scales: np.ndarray, shapes, share,
-             power: float = 1.0, log_shift=0.0) -> Dataset:
+             power: float = 1.0, log_shift=0.0, log_shape_shift=0.0) -> Dataset:
     """New outcomes for the units of ``data`` (same entries and censoring times).
 
     ``scales`` and ``shapes`` are the timing scale, in the model's relative
     time, and the curve shape per cohort and outcome (cohorts, K); ``log_shift`` (units,)
     shifts each unit's log scale, (units, K) each outcome's, and ``share``
-    may be one per unit and outcome (covariates).
+    may be one per unit and outcome (covariates); ``log_shape_shift`` (units,)
+    shifts each unit's log curve shape.
     """
     shift = np.asarray(log_shift, dtype=float)
     scale = scales[data["cohort"]] * data.extra["age_ref"] * np.exp(shift[:, None] if shift.ndim == 1 else shift)
     shape = np.asarray(shapes, dtype=float)[data["cohort"]]
+    shape = shape * np.exp(np.broadcast_to(np.asarray(log_shape_shift, dtype=float), (data.rows,)))[:, None]
     drawn = draw_units(rng, family, data["entry"], data["follow"], scale, shape, share, power)
-    return data.replace(time=drawn[:, 0], code=drawn[:, 1].astype(np.int64), age=drawn[:, 0])
+    out = data.replace(time=drawn[:, 0], code=drawn[:, 1].astype(np.int64), age=drawn[:, 0])
+    # The statistics' time bins follow the outcome times, as validating the new table would
+    # set them (the reference time stays: the parameters are relative to it).
+    out.extra = {**data.extra, "bins": time_bins(drawn[drawn[:, 1] > 0, 0])}
+    return out
 
 
 def simulate_table(rng: np.random.Generator, family: str, scale, shape, share, units: int,
@@ -580,15 +589,17 @@ def _unit_curves(data: Dataset, draws: dict, family: str, picked: np.ndarray):
             share = covariates.shift_shares(share, cohort_shift[..., None], against_open=True)
         return data["cohort"], scale, shape, np.broadcast_to(share, scale.shape), power
     # Each unit its own curve: its cohort's scale shifted by its covariates.
-    picked_draws = {name: np.asarray(draws[name])[picked] for name in ("time_effect", "share_effect")
-                    if name in draws}
+    picked_draws = {name: np.asarray(draws[name])[picked] for name in
+                    ("time_effect", "share_effect", covariates.CURVATURE, covariates.SHAPE_SLOPE) if name in draws}
     if np.ndim(draws.get("time_effect", np.zeros((1, 1)))) == 3:
         # One effect per outcome and covariate (competing risks).
         time_shift = covariates.linear_by(design, picked_draws, "time_effect")
     else:
         time_shift = np.asarray(covariates.linear(design, picked_draws, "time_effect"))[..., None]
+    # The covariate_form relaxations: the shift bent, the shape moved (S, units) or (units,).
+    time_shift = time_shift + np.asarray(covariates.curvature_shift(design, picked_draws))[..., None]
     scale = scale[:, data["cohort"], :] * np.exp(time_shift)
-    shape = shape[:, data["cohort"], :]
+    shape = shape[:, data["cohort"], :] * np.exp(np.asarray(covariates.shape_shift(design, picked_draws)))[..., None]
     if np.ndim(draws.get("share_effect", np.zeros((1, 1)))) == 3:
         # Multinomial log-odds per outcome: against the open share when one is
         # estimated (an effect for every outcome), else against the first outcome.
@@ -737,6 +748,28 @@ def covariate_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
         return observed, expected, expected
 
     return covariates.bend(data.extra["covariates"], per_band)
+
+
+def units_of(data: Dataset, rows: np.ndarray) -> Dataset:
+    """The units ``rows`` of a unit layout as a dataset of their own (same cohorts, bins and
+    reference time; the covariates' rows taken with them)."""
+    extra = dict(data.extra)
+    if extra.get("covariates") is not None:
+        extra["covariates"] = extra["covariates"].take(rows)
+    return Dataset({k: v[rows] for k, v in data.columns.items()}, data.labels,
+                   [data.source_rows[i] for i in rows] if data.source_rows else [], extra)
+
+
+def covariate_age_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
+    """:func:`workbench.covariates.age_trend_spread` on each band's hazard trend (:func:`hazard_trend`)."""
+    from workbench import covariates
+
+    y = np.asarray(outcomes["y"])
+
+    def band_slopes(rows):
+        return hazard_trend(units_of(data, rows), {"y": y[:, rows]}, draws)
+
+    return covariates.age_trend_spread(data.extra["covariates"], band_slopes)
 
 
 def no_independence_check(data: Dataset) -> str:
