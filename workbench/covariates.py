@@ -252,14 +252,18 @@ def curvature_basis(design: Design | None) -> np.ndarray | None:
     return np.sum([z**2 - 1.0 for z in columns], axis=0)
 
 
-def curvature_shift(design: Design | None, params: dict):
-    """The relaxation's shift per row from one draw (0 when absent, as under the assumption)."""
-    basis = curvature_basis(design)
-    if basis is None or CURVATURE not in params:
+def _times_basis(basis: np.ndarray | None, params: dict, name: str):
+    """``params[name]`` times ``basis``: one draw gives (rows,), draws (S,) give (S, rows);
+    0 when the parameter or the basis is absent (as under the assumption)."""
+    if basis is None or name not in params:
         return 0.0
-    curvature = np.asarray(params[CURVATURE], dtype=float)
-    # One draw: (rows,); draws (S,): (S, rows).
-    return curvature.reshape(-1)[0] * basis if curvature.size == 1 else curvature.reshape(-1, 1) * basis
+    value = np.asarray(params[name], dtype=float)
+    return value.reshape(-1)[0] * basis if value.size == 1 else value.reshape(-1, 1) * basis
+
+
+def curvature_shift(design: Design | None, params: dict):
+    """The curvature relaxation's shift of the covariates' effect per row."""
+    return _times_basis(curvature_basis(design), params, CURVATURE)
 
 
 def shape_basis(design: Design | None) -> np.ndarray | None:
@@ -271,13 +275,8 @@ def shape_basis(design: Design | None) -> np.ndarray | None:
 
 
 def shape_shift(design: Design | None, params: dict):
-    """The shape relaxation's shift of the log curve shape per row (0 when absent);
-    one draw gives (rows,), draws (S,) give (S, rows)."""
-    basis = shape_basis(design)
-    if basis is None or SHAPE_SLOPE not in params:
-        return 0.0
-    slope = np.asarray(params[SHAPE_SLOPE], dtype=float)
-    return slope.reshape(-1)[0] * basis if slope.size == 1 else slope.reshape(-1, 1) * basis
+    """The shape relaxation's shift of the log curve shape per row."""
+    return _times_basis(shape_basis(design), params, SHAPE_SLOPE)
 
 
 def bands(design: Design, name: str) -> tuple[np.ndarray, np.ndarray]:
@@ -430,10 +429,11 @@ def shaped(design: Design, prior, relax: str | None):
 
 
 FORM_ADVICE = ("The effect of a numeric covariate is not the modelled straight line: add a transformed "
-               "column (its log, its square, or bands as a label) to --set covariates=...; when its time "
-               "ratio differs between early and late ages, fit the groups it defines with their own "
-               "shapes (bands as a group column with --set shape_by_group=true), or ask what else "
-               "changes along it.")
+               "column (its log, its square, or bands as a label) to --set covariates=..., or ask what "
+               "else changes along it.")
+# The timing recipes' remedy when the time ratio differs between early and late ages.
+AGE_ADVICE = (" When its time ratio differs between early and late ages, fit the groups it defines "
+              "with their own shapes (bands as a group column with --set shape_by_group=true).")
 
 
 def form_assumption(build_model, scale: str, statistic: Statistic, timing: Statistic | None = None) -> tuple:
@@ -450,6 +450,7 @@ def form_assumption(build_model, scale: str, statistic: Statistic, timing: Stati
 
     statement = f"Each covariate's effect is as modelled: a straight line on {scale}" + (
         ", the same at every age." if timing is not None else ".")
+    advice = FORM_ADVICE + (AGE_ADVICE if timing is not None else "")
     entries = [Assumption(
         key="covariate_form",
         statement=statement,
@@ -459,7 +460,7 @@ def form_assumption(build_model, scale: str, statistic: Statistic, timing: Stati
             meaning=f"the covariates' shift of {scale} may bend (a square term per numeric covariate)",
             null=0.0, negligible=CURVATURE_NEGLIGIBLE, planted=CURVATURE_PLANTED,
         ),
-        advice=FORM_ADVICE,
+        advice=advice,
         informed_by=form_to_check,
         made=has_covariates,
     )]
@@ -474,7 +475,7 @@ def form_assumption(build_model, scale: str, statistic: Statistic, timing: Stati
                         "differs between early and late ages)",
                 null=0.0, negligible=SHAPE_NEGLIGIBLE, planted=SHAPE_PLANTED,
             ),
-            advice=FORM_ADVICE,
+            advice=advice,
             informed_by=form_to_check,
             made=has_covariates,
         ))
