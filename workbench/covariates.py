@@ -396,36 +396,32 @@ def shifts(design: Design, prior, name: str, over: str | None = None):
     return pt.dot(pt.constant(design.matrix), effect.T)
 
 
-def bent(design: Design, prior, relax: str | None, shift, by_element: bool = False):
-    """``shift`` (rows, or rows x elements when ``by_element``), bent by the ``covariate_form``
-    relaxation when ``relax`` asks for it: one curvature for every element."""
+def _relaxed_term(prior, relax: str | None, parameter: str, basis):
+    """``parameter x basis`` per row when ``relax`` names ``parameter``, else None. Without a
+    numeric covariate nothing moves: the expansion is recorded at its null."""
     import pymc as pm
     import pytensor.tensor as pt
 
-    if relax != CURVATURE:
-        return shift
-    basis = curvature_basis(design)
+    if relax != parameter:
+        return None
     if basis is None:
-        # No numeric covariate: nothing to bend; the expansion stays at its null.
-        pm.Deterministic(CURVATURE, pt.zeros(()))
+        pm.Deterministic(parameter, pt.zeros(()))
+        return None
+    return prior(parameter) * pt.constant(basis)
+
+
+def bent(design: Design, prior, relax: str | None, shift, by_element: bool = False):
+    """``shift`` (rows, or rows x elements when ``by_element``), bent by the ``covariate_form``
+    relaxation when ``relax`` asks for it: one curvature for every element."""
+    term = _relaxed_term(prior, relax, CURVATURE, curvature_basis(design))
+    if term is None:
         return shift
-    term = prior(CURVATURE) * pt.constant(basis)
     return shift + (term[:, None] if by_element else term)
 
 
 def shaped(design: Design, prior, relax: str | None):
     """The shape relaxation's shift of the log curve shape per row, or None when not relaxed."""
-    import pymc as pm
-    import pytensor.tensor as pt
-
-    if relax != SHAPE_SLOPE:
-        return None
-    basis = shape_basis(design)
-    if basis is None:
-        # No numeric covariate: nothing to move the shape; the expansion stays at its null.
-        pm.Deterministic(SHAPE_SLOPE, pt.zeros(()))
-        return None
-    return prior(SHAPE_SLOPE) * pt.constant(basis)
+    return _relaxed_term(prior, relax, SHAPE_SLOPE, shape_basis(design))
 
 
 FORM_ADVICE = ("The effect of a numeric covariate is not the modelled straight line: add a transformed "
