@@ -141,7 +141,7 @@ def _map_curvature(design, data) -> float:
 
     relaxation = next(a.relaxation for a in design.assumptions if a.key == "covariate_form")
     model = design.build(data, relaxation)
-    point = pm.find_MAP(model=model, progressbar=False, seed=1, jitter=False)
+    point = pm.find_MAP(model=model, progressbar=False, random_seed=1, jitter=False)
     return float(point[covariates.CURVATURE])
 
 
@@ -198,5 +198,5 @@ def test_the_shape_relaxation_peaks_at_the_slope_the_simulator_planted():
                           if a.relaxation and a.relaxation.parameter == covariates.SHAPE_SLOPE)
         import pymc as pm
 
-        point = pm.find_MAP(model=design.build(data, relaxation), progressbar=False, seed=1, jitter=False)
+        point = pm.find_MAP(model=design.build(data, relaxation), progressbar=False, random_seed=1, jitter=False)
         assert float(point[covariates.SHAPE_SLOPE]) == pytest.approx(covariates.SHAPE_PLANTED, abs=0.08), name
