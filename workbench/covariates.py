@@ -453,7 +453,7 @@ def form_assumption(build_model, scale: str, statistic: Statistic, timing: Stati
         statistic=statistic,
         relaxation=Relaxation(
             parameter=CURVATURE, build=partial(build_model, relax=CURVATURE),
-            meaning=f"the covariates' shift of {scale} may bend (a square term per numeric covariate)",
+            meaning=f"the covariates' shift of {scale} may bend, by a square term per numeric covariate",
             null=0.0, negligible=CURVATURE_NEGLIGIBLE, planted=CURVATURE_PLANTED,
         ),
         advice=advice,
@@ -467,8 +467,8 @@ def form_assumption(build_model, scale: str, statistic: Statistic, timing: Stati
             statistic=timing,
             relaxation=Relaxation(
                 parameter=SHAPE_SLOPE, build=partial(build_model, relax=SHAPE_SLOPE),
-                meaning="the covariates may change the curve's shape too (their time ratio then "
-                        "differs between early and late ages)",
+                meaning="the covariates may also change the curve's shape, so that their time ratio "
+                        "differs between early and late ages",
                 null=0.0, negligible=SHAPE_NEGLIGIBLE, planted=SHAPE_PLANTED,
             ),
             advice=advice,
