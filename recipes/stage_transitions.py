@@ -869,11 +869,8 @@ def move_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     y = np.asarray(outcomes["y"], dtype=float)[..., transient].sum(axis=-1)
     mean, var = mean[..., transient].sum(axis=-1), var[..., transient].sum(axis=-1)
 
-    def per_band(band, n_bands):
-        onehot = (band[:, None] == np.arange(n_bands)[None, :]).astype(float)
-        return y @ onehot, mean @ onehot, var @ onehot
-
-    return covariates.bend(data.extra["covariates"].take(data.extra["step"]), per_band)
+    return covariates.bend(data.extra["covariates"].take(data.extra["step"]),
+                           lambda band, n_bands: covariates.band_sums(band, n_bands, y, mean, var))
 
 
 def _reachable(data: Dataset) -> np.ndarray:

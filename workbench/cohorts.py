@@ -631,11 +631,9 @@ def covariate_bend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:
     mean, var = _moments(data, draws)
     y = cumulative_counts(data, outcomes["y"])
 
-    def per_band(band, n_bands):
-        onehot = (band[:, None] == np.arange(n_bands)[None, :]).astype(float)
-        return tuple(a.sum(axis=-1) @ onehot for a in (y, mean, var))
-
-    return covariates.bend(data.extra["covariates"], per_band)
+    totals = [a.sum(axis=-1) for a in (y, mean, var)]
+    return covariates.bend(data.extra["covariates"],
+                           lambda band, n_bands: covariates.band_sums(band, n_bands, *totals))
 
 
 def covariate_age_trend(data: Dataset, outcomes: dict, draws: dict) -> np.ndarray:

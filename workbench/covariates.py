@@ -307,6 +307,12 @@ def bend_contrast(centres: np.ndarray) -> np.ndarray:
     return q / norm if norm > 0 else np.zeros_like(x)
 
 
+def band_sums(band: np.ndarray, n_bands: int, *arrays) -> tuple:
+    """Each array (S, rows) summed over the rows of each band: (S, bands) apiece."""
+    onehot = (band[:, None] == np.arange(n_bands)[None, :]).astype(float)
+    return tuple(np.asarray(a, dtype=float) @ onehot for a in arrays)
+
+
 def bend(design: Design, observed_and_expected) -> np.ndarray:
     """The ``covariate_bend`` statistic, summed over numeric covariates.
 
