@@ -74,10 +74,11 @@ def faults(recipe, variant: str = "") -> list[tuple[str, str]]:
     """(scenario, assumption it breaks): clean, one per relaxation, and the recipe's extra faults."""
     out = [(CLEAN, "")]
     only = VARIANT_FAULTS.get((recipe.name, variant))
-    for scenario in rates.scenarios(recipe, VARIANT_OPTIONS.get((recipe.name, variant))):
+    options = VARIANT_OPTIONS.get((recipe.name, variant), {})
+    for scenario in rates.scenarios(recipe, options):
         if scenario != CLEAN and (only is None or scenario in only):
             out.append((scenario, scenario))
-    made = {a.key for a in recipe.assumptions if a.made_under(VARIANT_OPTIONS.get((recipe.name, variant), {}))}
+    made = {a.key for a in recipe.assumptions if a.made_under(options)}
     for recipe_name, scenario in layouts.STRENGTHS:
         key = scenario.split(":")[0]
         if recipe_name == recipe.name and ":" in scenario and key in made and (only is None or scenario in only):
@@ -92,7 +93,7 @@ def planted_for(recipe, scenario: str, rng, variant: str = "") -> tuple[dict, di
     parameter, value = layouts.fault_strength(recipe.name, scenario, rng)
     options = {}
     if ":" not in scenario:
-        options = dict(rates.scenarios(recipe, VARIANT_OPTIONS.get((recipe.name, variant)))[scenario].options)
+        options = dict(rates.scenarios(recipe, VARIANT_OPTIONS.get((recipe.name, variant), {}))[scenario].options)
     return {parameter: value}, options
 
 
